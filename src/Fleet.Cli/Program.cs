@@ -1,0 +1,1 @@
+return Fleet.Cli.FleetCommandLine.Run(args);

@@ -1,0 +1,7 @@
+namespace Fleet.Estimation.Tests;
+
+public class SmokeTests
+{
+    [Fact]
+    public void Assembly_Loads() => Assert.NotNull(typeof(SmokeTests).Assembly);
+}
