@@ -71,9 +71,11 @@ public enum TrackingState
 }
 
 /// <summary>
-/// A pose estimate at <see cref="Time"/>. <see cref="Covariance"/> is 7×7 row-major over
-/// (x, y, z, yaw, vx, vy, vz) in the site frame (m, rad, m/s); entries a model does not estimate are zero
-/// with the diagonal set to <see cref="PoseEstimate.UnobservedVariance"/>.
+/// A pose estimate at <see cref="Time"/> (s). <see cref="Position"/> is the robot reference point and
+/// <see cref="TagPosition"/> the tag (reference point + R(yaw)·lever arm), both in the site frame (m).
+/// For a constant-velocity tag-only filter both are the tag. <see cref="Covariance"/> is 7×7 row-major over
+/// (x, y, z, yaw, vx, vy, vz) of the reference point in the site frame (m, rad, m/s); entries a model does not
+/// estimate are zero with the diagonal set to <see cref="PoseEstimate.UnobservedVariance"/>.
 /// </summary>
 public sealed class PoseEstimate
 {
@@ -82,6 +84,7 @@ public sealed class PoseEstimate
 
     public double Time { get; set; }
     public Vector3D Position { get; set; }
+    public Vector3D TagPosition { get; set; }
     public double Yaw { get; set; }
     public Vector3D Velocity { get; set; }
     public double[] Covariance { get; } = new double[Dimension * Dimension];
