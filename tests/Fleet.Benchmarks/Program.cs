@@ -1,3 +1,4 @@
 using BenchmarkDotNet.Running;
+using Fleet.Benchmarks;
 
-BenchmarkSwitcher.FromAssembly(typeof(Program).Assembly).Run(args);
+BenchmarkSwitcher.FromAssembly(typeof(FleetBenchmarkConfig).Assembly).Run(args);
