@@ -45,9 +45,10 @@ public sealed class FilterOptions
 
     /// <summary>
     /// Consecutive, mutually consistent events this far outside [LastTime − gap, LastTime + gap] needed before the
-    /// filter accepts a time discontinuity and re-acquires; single stray timestamps are rejected. Default 2.
+    /// filter accepts a time discontinuity and re-acquires; stray timestamps are rejected. Default 3 (a real
+    /// discontinuity arrives as a stream, so this costs two measurements; two stray stamps in a row are not believed).
     /// </summary>
-    public int TimeJumpConfirmCount { get; init; } = 2;
+    public int TimeJumpConfirmCount { get; init; } = 3;
 
     /// <summary>Tag offset from the robot reference point in the body frame (x forward, z up; m). Planar model only.</summary>
     public Vector3D TagLeverArm { get; init; } = Vector3D.Zero;
