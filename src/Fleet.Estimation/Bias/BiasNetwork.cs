@@ -40,7 +40,8 @@ public enum BiasActivation
 public sealed class BiasNetwork : ITdoaBiasModel
 {
     private readonly SharedWeights _shared;
-    private readonly float[] _input;
+    private readonly float[] _inputA;
+    private readonly float[] _inputB;
     private readonly float[] _bufferA;
     private readonly float[] _bufferB;
     private readonly float[] _sigmoid;
@@ -65,10 +66,13 @@ public sealed class BiasNetwork : ITdoaBiasModel
     private BiasNetwork(SharedWeights shared)
     {
         _shared = shared;
-        _input = new float[shared.InputCount];
-        _bufferA = new float[shared.MaxPaddedWidth];
-        _bufferB = new float[shared.MaxPaddedWidth];
-        _sigmoid = new float[shared.MaxPaddedWidth];
+        _inputA = new float[shared.InputCount];
+        _inputB = new float[shared.InputCount];
+
+        // Each buffer holds one layer's outputs for link a (first half) and link b (second half).
+        _bufferA = new float[2 * shared.MaxPaddedWidth];
+        _bufferB = new float[2 * shared.MaxPaddedWidth];
+        _sigmoid = new float[2 * shared.MaxPaddedWidth];
     }
 
     public LinkFeatureSet FeatureSet => _shared.FeatureSet;
@@ -119,20 +123,37 @@ public sealed class BiasNetwork : ITdoaBiasModel
     /// </summary>
     public float Evaluate(ReadOnlySpan<float> features)
     {
-        if (features.Length < _shared.InputCount)
+        var count = _shared.InputCount;
+        if (features.Length < count)
         {
-            throw new ArgumentException($"expected {_shared.InputCount} features", nameof(features));
+            throw new ArgumentException($"expected {count} features", nameof(features));
         }
 
-        features[.._shared.InputCount].CopyTo(_input);
-        return EvaluateInput();
+        features[..count].CopyTo(_inputA);
+        features[..count].CopyTo(_inputB);
+        return EvaluateInputs().A;
+    }
+
+    /// <summary>Link biases (m) of two raw feature vectors at once (about the cost of one <see cref="Evaluate"/>).</summary>
+    public (float A, float B) EvaluatePair(ReadOnlySpan<float> featuresA, ReadOnlySpan<float> featuresB)
+    {
+        var count = _shared.InputCount;
+        if (featuresA.Length < count || featuresB.Length < count)
+        {
+            throw new ArgumentException($"expected {count} features per link");
+        }
+
+        featuresA[..count].CopyTo(_inputA);
+        featuresB[..count].CopyTo(_inputB);
+        return EvaluateInputs();
     }
 
     /// <summary>Bias (m) of the single link anchor <paramref name="anchorIndex"/> → tag (defined up to a common constant).</summary>
     public double PredictLinkBias(AnchorMap map, int anchorIndex, in Vector3D tagPosition, double robotYaw)
     {
-        LinkFeatures.Write(map, anchorIndex, tagPosition, robotYaw, _shared.FeatureSet, _input);
-        return EvaluateInput();
+        LinkFeatures.Write(map, anchorIndex, tagPosition, robotYaw, _shared.FeatureSet, _inputA);
+        _inputA.CopyTo(_inputB.AsSpan());
+        return EvaluateInputs().A;
     }
 
     /// <summary>
@@ -141,22 +162,26 @@ public sealed class BiasNetwork : ITdoaBiasModel
     /// </summary>
     public double PredictTdoaBias(AnchorMap map, int anchorA, int anchorB, in Vector3D tagPosition, double robotYaw)
     {
-        LinkFeatures.Write(map, anchorB, tagPosition, robotYaw, _shared.FeatureSet, _input);
-        double biasB = EvaluateInput();
-        LinkFeatures.Write(map, anchorA, tagPosition, robotYaw, _shared.FeatureSet, _input);
-        double biasA = EvaluateInput();
-        return biasB - biasA;
+        LinkFeatures.Write(map, anchorA, tagPosition, robotYaw, _shared.FeatureSet, _inputA);
+        LinkFeatures.Write(map, anchorB, tagPosition, robotYaw, _shared.FeatureSet, _inputB);
+        var (biasA, biasB) = EvaluateInputs();
+        return (double)biasB - biasA;
     }
 
-    private float EvaluateInput()
+    /// <summary>Runs both links (<see cref="_inputA"/>, <see cref="_inputB"/>) through the network together.</summary>
+    private (float A, float B) EvaluateInputs()
     {
         var shared = _shared;
-        Span<float> x = _input;
-        TensorPrimitives.Subtract(x, shared.Mean, x);
-        TensorPrimitives.Divide(x, shared.Std, x);
+        Span<float> xa = _inputA;
+        Span<float> xb = _inputB;
+        TensorPrimitives.Subtract(xa, shared.Mean, xa);
+        TensorPrimitives.Divide(xa, shared.Std, xa);
+        TensorPrimitives.Subtract(xb, shared.Mean, xb);
+        TensorPrimitives.Divide(xb, shared.Std, xb);
 
         ReadOnlySpan<float> packed = shared.Packed;
-        ReadOnlySpan<float> input = x;
+        ReadOnlySpan<float> inputA = xa;
+        ReadOnlySpan<float> inputB = xb;
         Span<float> next = _bufferA;
         Span<float> spare = _bufferB;
         var offset = 0;
@@ -165,47 +190,123 @@ public sealed class BiasNetwork : ITdoaBiasModel
         {
             var inputs = shared.LayerSizes[layer];
             var padded = shared.PaddedWidths[layer];
-            var output = next[..padded];
-            packed.Slice(offset + (inputs * padded), padded).CopyTo(output);
-
-            // Gemv as a sum of weight columns scaled by each input: one broadcast and padded/Count fused
-            // multiply-adds per input keep everything in a few vector registers. TensorPrimitives has no Gemv,
-            // and per-row Dot calls on 7–30 floats cost more in call overhead than in arithmetic.
-            var accumulators = MemoryMarshal.Cast<float, Vector<float>>(output);
-            var columns = MemoryMarshal.Cast<float, Vector<float>>(packed.Slice(offset, inputs * padded));
-            var chunks = accumulators.Length;
-            for (var i = 0; i < inputs; i++)
+            var outputA = next[..padded];
+            var outputB = next.Slice(padded, padded);
+            var weights = packed.Slice(offset, (inputs + 1) * padded);
+            if (padded == RegisterChunks * Vector<float>.Count)
             {
-                var broadcast = new Vector<float>(input[i]);
-                var column = columns.Slice(i * chunks, chunks);
-                for (var k = 0; k < chunks; k++)
-                {
-                    accumulators[k] = Vector.FusedMultiplyAdd(column[k], broadcast, accumulators[k]);
-                }
-            }
-
-            // Padding lanes hold 0 and stay 0 under both activations.
-            if (shared.Activation == BiasActivation.Tanh)
-            {
-                TensorPrimitives.Tanh(output, output);
+                DensePairInRegisters(weights, inputs, inputA, inputB, outputA, outputB);
             }
             else
             {
-                var sigmoid = _sigmoid.AsSpan(0, padded);
-                TensorPrimitives.Sigmoid(output, sigmoid);
-                TensorPrimitives.Multiply(output, sigmoid, output);
+                DenseInMemory(weights, inputs, padded, inputA, outputA);
+                DenseInMemory(weights, inputs, padded, inputB, outputB);
+            }
+
+            // Both links in one call; padding lanes hold 0 and stay 0 under both activations.
+            var both = next[..(2 * padded)];
+            if (shared.Activation == BiasActivation.Tanh)
+            {
+                TensorPrimitives.Tanh(both, both);
+            }
+            else
+            {
+                var sigmoid = _sigmoid.AsSpan(0, 2 * padded);
+                TensorPrimitives.Sigmoid(both, sigmoid);
+                TensorPrimitives.Multiply(both, sigmoid, both);
             }
 
             offset += (inputs + 1) * padded;
-            input = output;
+            inputA = outputA;
+            inputB = outputB;
             var swap = next;
             next = spare;
             spare = swap;
         }
 
         var lastInputs = shared.LayerSizes[layers];
-        var raw = TensorPrimitives.Dot(packed.Slice(offset, lastInputs), input[..lastInputs]) + packed[offset + lastInputs];
-        return raw * shared.OutputScale;
+        var lastWeights = packed.Slice(offset, lastInputs);
+        var lastBias = packed[offset + lastInputs];
+        var rawA = TensorPrimitives.Dot(lastWeights, inputA[..lastInputs]) + lastBias;
+        var rawB = TensorPrimitives.Dot(lastWeights, inputB[..lastInputs]) + lastBias;
+        return (rawA * shared.OutputScale, rawB * shared.OutputScale);
+    }
+
+    /// <summary>Layers at most this many vectors wide run with their accumulators held in registers.</summary>
+    private const int RegisterChunks = 4;
+
+    /// <summary>
+    /// y = W·x + b for two inputs at once, W packed as Wᵀ [inputs × 4 vectors] then b [4 vectors].
+    /// Gemv as a sum of weight columns scaled by each input: per input, four column loads feed eight multiply-adds
+    /// (both links) into eight register accumulators. TensorPrimitives has no Gemv, and per-row Dot calls on
+    /// 7–30 floats cost more in call overhead than in arithmetic.
+    /// </summary>
+    private static void DensePairInRegisters(ReadOnlySpan<float> weights, int inputs, ReadOnlySpan<float> xa, ReadOnlySpan<float> xb,
+        Span<float> ya, Span<float> yb)
+    {
+        var lanes = (nuint)Vector<float>.Count;
+        var stride = RegisterChunks * lanes;
+        if (weights.Length < (int)((nuint)(inputs + 1) * stride) || xa.Length < inputs || xb.Length < inputs
+            || ya.Length < (int)stride || yb.Length < (int)stride)
+        {
+            throw new InvalidOperationException("packed layer sizes are inconsistent");
+        }
+
+        ref readonly var w = ref MemoryMarshal.GetReference(weights);
+        var biasOffset = (nuint)inputs * stride;
+        var a0 = Vector.LoadUnsafe(in w, biasOffset);
+        var a1 = Vector.LoadUnsafe(in w, biasOffset + lanes);
+        var a2 = Vector.LoadUnsafe(in w, biasOffset + (2 * lanes));
+        var a3 = Vector.LoadUnsafe(in w, biasOffset + (3 * lanes));
+        Vector<float> b0 = a0, b1 = a1, b2 = a2, b3 = a3;
+        for (var i = 0; i < inputs; i++)
+        {
+            var column = (nuint)i * stride;
+            var c0 = Vector.LoadUnsafe(in w, column);
+            var c1 = Vector.LoadUnsafe(in w, column + lanes);
+            var c2 = Vector.LoadUnsafe(in w, column + (2 * lanes));
+            var c3 = Vector.LoadUnsafe(in w, column + (3 * lanes));
+            var va = new Vector<float>(xa[i]);
+            var vb = new Vector<float>(xb[i]);
+            a0 = Vector.MultiplyAddEstimate(c0, va, a0);
+            a1 = Vector.MultiplyAddEstimate(c1, va, a1);
+            a2 = Vector.MultiplyAddEstimate(c2, va, a2);
+            a3 = Vector.MultiplyAddEstimate(c3, va, a3);
+            b0 = Vector.MultiplyAddEstimate(c0, vb, b0);
+            b1 = Vector.MultiplyAddEstimate(c1, vb, b1);
+            b2 = Vector.MultiplyAddEstimate(c2, vb, b2);
+            b3 = Vector.MultiplyAddEstimate(c3, vb, b3);
+        }
+
+        ref var da = ref MemoryMarshal.GetReference(ya);
+        ref var db = ref MemoryMarshal.GetReference(yb);
+        a0.StoreUnsafe(ref da, 0);
+        a1.StoreUnsafe(ref da, lanes);
+        a2.StoreUnsafe(ref da, 2 * lanes);
+        a3.StoreUnsafe(ref da, 3 * lanes);
+        b0.StoreUnsafe(ref db, 0);
+        b1.StoreUnsafe(ref db, lanes);
+        b2.StoreUnsafe(ref db, 2 * lanes);
+        b3.StoreUnsafe(ref db, 3 * lanes);
+    }
+
+    /// <summary>y = W·x + b for wide layers (more than <see cref="RegisterChunks"/> vectors): accumulators in memory.</summary>
+    private static void DenseInMemory(ReadOnlySpan<float> weights, int inputs, int padded, ReadOnlySpan<float> x, Span<float> y)
+    {
+        var output = y[..padded];
+        weights.Slice(inputs * padded, padded).CopyTo(output);
+        var accumulators = MemoryMarshal.Cast<float, Vector<float>>(output);
+        var columns = MemoryMarshal.Cast<float, Vector<float>>(weights[..(inputs * padded)]);
+        var chunks = accumulators.Length;
+        for (var i = 0; i < inputs; i++)
+        {
+            var broadcast = new Vector<float>(x[i]);
+            var column = columns.Slice(i * chunks, chunks);
+            for (var k = 0; k < chunks; k++)
+            {
+                accumulators[k] = Vector.MultiplyAddEstimate(column[k], broadcast, accumulators[k]);
+            }
+        }
     }
 
     /// <summary>Immutable weights shared by clones, in canonical and inference-packed layouts.</summary>
@@ -276,7 +377,8 @@ public sealed class BiasNetwork : ITdoaBiasModel
             var maxPadded = lanes;
             for (var l = 0; l < widths.Length; l++)
             {
-                var padded = (widths[l] + lanes - 1) / lanes * lanes;
+                // Up to RegisterChunks vectors: pad to exactly that many (register kernel); wider: whole vectors.
+                var padded = widths[l] <= RegisterChunks * lanes ? RegisterChunks * lanes : (widths[l] + lanes - 1) / lanes * lanes;
                 PaddedWidths[l] = padded;
                 maxPadded = Math.Max(maxPadded, padded);
                 packedLength += (sizes[l] + 1) * padded;

@@ -167,7 +167,7 @@ public static class BiasTrainer
         var best = (double[])theta.Clone();
         var bestEpoch = 0;
         var bestValidation = hasValidation
-            ? Rmse(evaluator, theta, features, validationIndices, targets, outputScale, residuals, scratch)
+            ? ValidationErrors(evaluator, theta, features, validationIndices, targets, outputScale, residuals, scratch).Robust
             : double.NaN;
 
         var adam = new AdamOptimizer(parameterCount, options.LearningRate, options.Beta1, options.Beta2, options.Epsilon);
@@ -232,17 +232,17 @@ public static class BiasTrainer
             }
 
             sigma = ResidualScale(residuals, trainIndices, scratch, options.MinimumResidualScale);
-            var validationRmse = hasValidation
-                ? Rmse(evaluator, theta, features, validationIndices, targets, outputScale, residuals, scratch)
-                : double.NaN;
-            if (!hasValidation || validationRmse < bestValidation)
+            var (validationRmse, validationRobust) = hasValidation
+                ? ValidationErrors(evaluator, theta, features, validationIndices, targets, outputScale, residuals, scratch)
+                : (double.NaN, double.NaN);
+            if (!hasValidation || validationRobust < bestValidation)
             {
-                bestValidation = validationRmse;
+                bestValidation = validationRobust;
                 bestEpoch = epoch;
                 Array.Copy(theta, best, theta.Length);
             }
 
-            progress?.Report(new TrainingProgress(epoch, options.MaxEpochs, epochLoss / trainIndices.Length, validationRmse, bestEpoch, bestValidation));
+            progress?.Report(new TrainingProgress(epoch, options.MaxEpochs, epochLoss / trainIndices.Length, validationRmse, validationRobust, bestEpoch, bestValidation));
             if (hasValidation && epoch - bestEpoch >= options.Patience)
             {
                 stoppedEarly = true;
@@ -267,6 +267,8 @@ public static class BiasTrainer
             TrainRmseAfter = RmseOf(targets, trainMetric, model, rawFeatures, featureCount),
             ValidationRmseBefore = RmseOf(targets, validationIndices, null, rawFeatures, featureCount),
             ValidationRmseAfter = RmseOf(targets, validationIndices, model, rawFeatures, featureCount),
+            ValidationRobustRmseBefore = RobustRmseOf(targets, validationIndices, null, rawFeatures, featureCount),
+            ValidationRobustRmseAfter = RobustRmseOf(targets, validationIndices, model, rawFeatures, featureCount),
             ValidationSplit = splitKind,
             TrainingGroups = GroupsOf(samples, isValidation, false),
             ValidationGroups = GroupsOf(samples, isValidation, true),
@@ -501,17 +503,21 @@ public static class BiasTrainer
         }
     }
 
-    private static double Rmse(MlpTrainingKernel evaluator, double[] theta, double[] features, int[] indices, double[] targets,
-        double outputScale, double[] residuals, double[] scratch)
+    /// <summary>Validation RMSE and robust RMSE (1.4826·median |r|, insensitive to NLOS outliers; drives early stopping).</summary>
+    private static (double Rmse, double Robust) ValidationErrors(MlpTrainingKernel evaluator, double[] theta, double[] features, int[] indices,
+        double[] targets, double outputScale, double[] residuals, double[] scratch)
     {
         EvaluateResiduals(evaluator, theta, features, indices, targets, outputScale, residuals, scratch);
         var sum = 0.0;
-        foreach (var q in indices)
+        var absolute = new double[indices.Length];
+        for (var k = 0; k < indices.Length; k++)
         {
-            sum += residuals[q] * residuals[q];
+            var r = residuals[indices[k]];
+            sum += r * r;
+            absolute[k] = Math.Abs(r);
         }
 
-        return Math.Sqrt(sum / indices.Length);
+        return (Math.Sqrt(sum / indices.Length), MadToSigma * Median(absolute));
     }
 
     private static double ResidualScale(double[] residuals, int[] indices, double[] scratch, double floor)
@@ -536,17 +542,34 @@ public static class BiasTrainer
         var sum = 0.0;
         foreach (var q in indices)
         {
-            var residual = targets[q];
-            if (model is not null)
-            {
-                var a = model.Evaluate(raw.AsSpan(2 * q * featureCount, featureCount));
-                var b = model.Evaluate(raw.AsSpan(((2 * q) + 1) * featureCount, featureCount));
-                residual -= (double)b - a;
-            }
-
+            var residual = CorrectedResidual(targets, q, model, raw, featureCount);
             sum += residual * residual;
         }
 
         return Math.Sqrt(sum / indices.Length);
+    }
+
+    private static double RobustRmseOf(double[] targets, int[] indices, BiasNetwork? model, float[] raw, int featureCount)
+    {
+        var absolute = new double[indices.Length];
+        for (var k = 0; k < indices.Length; k++)
+        {
+            absolute[k] = Math.Abs(CorrectedResidual(targets, indices[k], model, raw, featureCount));
+        }
+
+        return MadToSigma * Median(absolute);
+    }
+
+    /// <summary>Target minus the shipped model's TDOA bias (or the target itself without a model).</summary>
+    private static double CorrectedResidual(double[] targets, int q, BiasNetwork? model, float[] raw, int featureCount)
+    {
+        var residual = targets[q];
+        if (model is not null)
+        {
+            var (a, b) = model.EvaluatePair(raw.AsSpan(2 * q * featureCount, featureCount), raw.AsSpan(((2 * q) + 1) * featureCount, featureCount));
+            residual -= (double)b - a;
+        }
+
+        return residual;
     }
 }

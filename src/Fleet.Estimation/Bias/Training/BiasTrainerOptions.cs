@@ -38,7 +38,7 @@ public sealed record BiasTrainerOptions
 
     public int MaxEpochs { get; init; } = 100;
 
-    /// <summary>Stop after this many epochs without a better validation RMSE.</summary>
+    /// <summary>Stop after this many epochs without a better validation robust RMSE (see <see cref="TrainingProgress"/>).</summary>
     public int Patience { get; init; } = 8;
 
     /// <summary>Target share of samples held out for validation (whole groups, robots or time blocks).</summary>
@@ -80,8 +80,13 @@ public enum ValidationSplitKind
     None,
 }
 
-/// <summary>Progress of one epoch, for progress bars. <see cref="ValidationRmse"/> in metres (NaN without validation).</summary>
-public readonly record struct TrainingProgress(int Epoch, int MaxEpochs, double TrainLoss, double ValidationRmse, int BestEpoch, double BestValidationRmse);
+/// <summary>
+/// Progress of one epoch, for progress bars. Errors in metres (NaN without validation). <see cref="ValidationRobustRmse"/>
+/// is 1.4826·median |residual|, which NLOS outliers barely move; early stopping keeps the epoch where it is smallest
+/// (<see cref="BestEpoch"/>, <see cref="BestValidationRobustRmse"/>).
+/// </summary>
+public readonly record struct TrainingProgress(
+    int Epoch, int MaxEpochs, double TrainLoss, double ValidationRmse, double ValidationRobustRmse, int BestEpoch, double BestValidationRobustRmse);
 
 /// <summary>
 /// What training did. RMSEs are of the TDOA residual (m): "before" = measured − true ddiff (no correction),
@@ -104,6 +109,12 @@ public sealed record TrainingReport
     public required double ValidationRmseBefore { get; init; }
 
     public required double ValidationRmseAfter { get; init; }
+
+    /// <summary>1.4826·median |residual| over the validation set without correction (m): an outlier-resistant RMSE.</summary>
+    public required double ValidationRobustRmseBefore { get; init; }
+
+    /// <summary>Same after correction (m); early stopping minimises this.</summary>
+    public required double ValidationRobustRmseAfter { get; init; }
 
     public required ValidationSplitKind ValidationSplit { get; init; }
 
