@@ -159,6 +159,8 @@ public sealed class BiasNetwork : ITdoaBiasModel
     /// <summary>
     /// Bias (m) of ddiff = |p − b| − |p − a| for a tag at <paramref name="tagPosition"/> (site frame, m) on a robot with
     /// yaw <paramref name="robotYaw"/> (rad): f(link b) − f(link a). Allocation-free; not thread-safe (see <see cref="Clone"/>).
+    /// NaN position or yaw gives NaN; indices must be valid for <paramref name="map"/> (the caller validates them).
+    /// Measured ≈ 0.36–0.4 µs per call for 3×30 tanh on the 2-core AVX2 development machine.
     /// </summary>
     public double PredictTdoaBias(AnchorMap map, int anchorA, int anchorB, in Vector3D tagPosition, double robotYaw)
     {
