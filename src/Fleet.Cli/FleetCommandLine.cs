@@ -15,6 +15,7 @@ internal static class FleetCommandLine
         root.Subcommands.Add(DemoCommand.Create());
         root.Subcommands.Add(SimulateCommand.Create());
         root.Subcommands.Add(ReplayCommand.Create());
+        root.Subcommands.Add(BiasCommand.Create());
         root.Subcommands.Add(BenchCommand.Create());
         return root;
     }
