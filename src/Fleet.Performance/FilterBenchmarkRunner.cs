@@ -9,13 +9,15 @@ public sealed record FilterBenchmarkResult(
     double Speedup,
     double BytesPerUpdate,
     double BytesPerUpdateReference,
+    double NsPerBiasCorrection,
+    double BytesPerBiasCorrection,
     long Updates,
     long ReferenceUpdates,
     int Rounds);
 
 /// <summary>
 /// Times the Fleet robust update against the MathNet reference in the same process, alternating short rounds
-/// of each so that machine noise hits both alike; reports medians over rounds. Allocation is measured with
+/// of each (and of bias-model inference) so that machine noise hits all alike; reports medians over rounds. Allocation is measured with
 /// <see cref="GC.GetAllocatedBytesForCurrentThread"/> around the timed loops.
 /// </summary>
 public static class FilterBenchmarkRunner
@@ -38,7 +40,16 @@ public static class FilterBenchmarkRunner
             reference.Update(scenario.At(referenceIndex++));
         }
 
+        var bias = new BiasBenchmarkScenario(scenario);
+        var sink = 0.0;
+        for (var i = 0; i < 20_000; i++)
+        {
+            sink += bias.Predict(i);
+        }
+
         var fleetNs = new double[rounds];
+        var biasNs = new double[rounds];
+        var biasBytes = new double[rounds];
         var referenceNs = new double[rounds];
         var fleetBytes = new double[rounds];
         var referenceBytes = new double[rounds];
@@ -63,7 +74,19 @@ public static class FilterBenchmarkRunner
 
             referenceNs[round] = Stopwatch.GetElapsedTime(start).TotalNanoseconds / referenceUpdatesPerRound;
             referenceBytes[round] = (double)(GC.GetAllocatedBytesForCurrentThread() - bytes0) / referenceUpdatesPerRound;
+
+            bytes0 = GC.GetAllocatedBytesForCurrentThread();
+            start = Stopwatch.GetTimestamp();
+            for (var i = 0; i < updatesPerRound; i++)
+            {
+                sink += bias.Predict(i);
+            }
+
+            biasNs[round] = Stopwatch.GetElapsedTime(start).TotalNanoseconds / updatesPerRound;
+            biasBytes[round] = (double)(GC.GetAllocatedBytesForCurrentThread() - bytes0) / updatesPerRound;
         }
+
+        GC.KeepAlive(sink);
 
         var fleetMedian = Median(fleetNs);
         var referenceMedian = Median(referenceNs);
@@ -73,6 +96,8 @@ public static class FilterBenchmarkRunner
             referenceMedian / fleetMedian,
             Median(fleetBytes),
             Median(referenceBytes),
+            Median(biasNs),
+            Median(biasBytes),
             (long)rounds * updatesPerRound,
             (long)rounds * referenceUpdatesPerRound,
             rounds);

@@ -32,6 +32,8 @@ internal static class BenchCommand
                     ["speedup"] = CliJson.Round(result.Speedup, 2),
                     ["bytes_per_update"] = CliJson.Round(result.BytesPerUpdate, 2),
                     ["bytes_per_update_reference"] = CliJson.Round(result.BytesPerUpdateReference, 1),
+                    ["ns_per_bias_correction"] = CliJson.Round(result.NsPerBiasCorrection, 1),
+                    ["bytes_per_bias_correction"] = CliJson.Round(result.BytesPerBiasCorrection, 2),
                     ["updates"] = result.Updates,
                     ["reference_updates"] = result.ReferenceUpdates,
                     ["rounds"] = result.Rounds,
@@ -43,6 +45,8 @@ internal static class BenchCommand
                     $"Fleet robust update     {result.NsPerUpdate,10:0.0} ns  {result.BytesPerUpdate,8:0.0} B/update"));
                 Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
                     $"MathNet reference EKF   {result.NsPerUpdateReference,10:0.0} ns  {result.BytesPerUpdateReference,8:0.0} B/update"));
+                Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+                    $"bias correction (3×30)  {result.NsPerBiasCorrection,10:0.0} ns  {result.BytesPerBiasCorrection,8:0.0} B/TDOA"));
                 Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"speedup {result.Speedup:0.0}× (median of {result.Rounds} alternating rounds)"));
             }
 
