@@ -31,6 +31,9 @@ public enum UpdateOutcome
 
     /// <summary>Held for initialisation (the filter has no estimate yet).</summary>
     Buffered,
+
+    /// <summary>Valid, but not used by the robot's motion model (odometry for a constant-velocity filter).</summary>
+    Ignored,
 }
 
 /// <summary>Why a measurement was rejected (or <see cref="None"/>).</summary>
