@@ -1,16 +1,24 @@
+using Fleet.Data.BiasModels;
 using Fleet.Estimation.Bias;
 using Fleet.Grains.Models;
 
 namespace Fleet.Server.Models;
 
-/// <summary>
-/// Reads uploaded bias-model bytes. The bias-model file format (Fleet.Data) is not in this build yet, so every
-/// upload is refused with a message saying so; robots run without bias correction until it lands.
-/// </summary>
+/// <summary>Reads uploaded bias models in the Fleet bias-model file format (<see cref="BiasModelFile"/>).</summary>
 internal sealed class BiasModelFileLoader : IBiasModelLoader
 {
-    public ITdoaBiasModel Load(ReadOnlyMemory<byte> model) =>
-        throw new NotSupportedException("this server build cannot read bias-model files yet");
+    public ITdoaBiasModel Load(ReadOnlyMemory<byte> model)
+    {
+        try
+        {
+            return BiasModelFile.Parse(model.Span, "uploaded model").Model;
+        }
+        catch (BiasModelFileException e)
+        {
+            throw new InvalidDataException(e.Message, e);
+        }
+    }
 
-    public ITdoaBiasModel CreateInstance(ITdoaBiasModel loaded) => loaded;
+    /// <summary>Bias networks own scratch buffers: each robot gets a clone sharing the weights.</summary>
+    public ITdoaBiasModel CreateInstance(ITdoaBiasModel loaded) => loaded is BiasNetwork network ? network.Clone() : loaded;
 }
