@@ -20,6 +20,7 @@ namespace Fleet.Grains;
 public sealed partial class RobotGrain(
     SiteModelCache models,
     ISiteRegistry registry,
+    RobotActivityLog activityLog,
     PoseHub hub,
     AnchorHealthTracker anchorHealth,
     FleetInstruments instruments,
@@ -49,7 +50,8 @@ public sealed partial class RobotGrain(
         _config = await GrainFactory.GetGrain<ISiteGrain>(_siteId).AttachRobot(_robotId);
         if (_config.Exists)
         {
-            _settings = registry.TouchRobot(_siteId, _robotId, options.Value.DefaultMotion);
+            _settings = registry.GetRobot(_siteId, _robotId);
+            activityLog.Mark(_siteId, _robotId);
         }
 
         BuildFilter();
@@ -64,7 +66,7 @@ public sealed partial class RobotGrain(
         instruments.RobotDeactivated(_siteId);
         if (_config.Exists && _seenSinceHeartbeat)
         {
-            registry.TouchRobot(_siteId, _robotId, options.Value.DefaultMotion);
+            activityLog.Mark(_siteId, _robotId);
         }
 
         return GrainFactory.GetGrain<ISiteGrain>(_siteId).DetachRobot(_robotId);
@@ -126,7 +128,8 @@ public sealed partial class RobotGrain(
         {
             if (config.Exists && _settings is null)
             {
-                _settings = registry.TouchRobot(_siteId, _robotId, options.Value.DefaultMotion);
+                _settings = registry.GetRobot(_siteId, _robotId);
+                activityLog.Mark(_siteId, _robotId);
             }
 
             BuildFilter();
@@ -341,7 +344,7 @@ public sealed partial class RobotGrain(
         if (_seenSinceHeartbeat && _config.Exists)
         {
             _seenSinceHeartbeat = false;
-            registry.TouchRobot(_siteId, _robotId, options.Value.DefaultMotion);
+            activityLog.Mark(_siteId, _robotId);
         }
     }
 

@@ -14,7 +14,7 @@ public sealed class FleetServerOptions
     /// <summary>gRPC (HTTP/2 without TLS). 0 picks a free port (see <see cref="FleetServerHost.GetGrpcAddress"/>).</summary>
     public int GrpcPort { get; set; } = 50051;
 
-    /// <summary>Internal HTTP/1.1 port serving only the Prometheus scrape endpoint /metrics; 0 disables it.</summary>
+    /// <summary>Internal HTTP/1.1 port serving only the Prometheus scrape endpoint /metrics; 0 picks a free port, a negative value disables it.</summary>
     public int MetricsPort { get; set; } = 9464;
 
     /// <summary>Orleans silo-to-silo port of the embedded single silo.</summary>

@@ -1,7 +1,9 @@
 using Fleet.Contracts.V1;
+using Fleet.Grains.Registry;
 using Google.Rpc;
 using Grpc.Core;
 using Grpc.Health.V1;
+using Microsoft.Extensions.DependencyInjection;
 
 namespace Fleet.Server.Tests;
 
@@ -177,6 +179,23 @@ public sealed class ServerEndToEndTests(SharedServer shared) : IClassFixture<Sha
         var health = await Server.Sites.ListAnchorHealthAsync(new ListAnchorHealthRequest { SiteId = site }, deadline: Deadline());
         Assert.Equal(TestScenario.Anchors.Length, health.Anchors.Count);
         Assert.All(health.Anchors, a => Assert.True(a.MeasurementsPerSecond > 0 && a.LastHeardTime is not null, a.AnchorId));
+    }
+
+    [Fact]
+    public async Task ListRobots_RobotOnlySeenThroughIngest_IsListedWithDefaults()
+    {
+        await CreateSiteWithMapAsync("seen");
+        var batch = new MeasurementBatch { SiteId = "seen" };
+        batch.Robots.Add(TestScenario.StaticTagSamples("tug-09", TagPosition, 0, 5));
+        await Server.Ingest.SubmitMeasurementsAsync(new SubmitMeasurementsRequest { Batch = batch }, deadline: Deadline());
+
+        // Sightings are written in batches on a timer; flush now instead of waiting.
+        Server.App.Services.GetRequiredService<RobotActivityLog>().Flush();
+        var robots = await Server.Sites.ListRobotsAsync(new ListRobotsRequest { SiteId = "seen" }, deadline: Deadline());
+        var robot = Assert.Single(robots.Robots);
+        Assert.Equal("tug-09", robot.RobotId);
+        Assert.Equal(MotionModel.PlanarOdometry, robot.MotionModel);
+        Assert.NotNull(robot.LastSeenTime);
     }
 
     [Fact]

@@ -16,6 +16,9 @@ public sealed record BiasModelEntry(string SiteId, int Version, DateTimeOffset C
 /// <summary>What the registry keeps about a robot: tag lever arm (body frame, m), motion model, wall-clock first and last seen.</summary>
 public sealed record RobotEntry(string SiteId, string RobotId, Vector3D TagOffset, MotionModelKind Motion, DateTimeOffset FirstSeen, DateTimeOffset LastSeen);
 
+/// <summary>A robot seen at a wall-clock time.</summary>
+public readonly record struct RobotSighting(string SiteId, string RobotId, DateTimeOffset Seen);
+
 public enum RegistryError
 {
     NotFound,
@@ -70,8 +73,11 @@ public interface ISiteRegistry
     /// <exception cref="RegistryException">NotFound (site).</exception>
     RobotEntry PutRobot(string siteId, string robotId, Vector3D tagOffset, MotionModelKind motion);
 
-    /// <summary>Records that the robot was seen now, creating it with <paramref name="defaultMotion"/> and no lever arm if new.</summary>
-    RobotEntry TouchRobot(string siteId, string robotId, MotionModelKind defaultMotion);
+    /// <summary>
+    /// Records when robots were last seen (one transaction), creating unknown ones with <paramref name="defaultMotion"/>
+    /// and no lever arm. Robots of sites that do not exist are skipped.
+    /// </summary>
+    void TouchRobots(IReadOnlyCollection<RobotSighting> sightings, MotionModelKind defaultMotion);
 
     IReadOnlyList<RobotEntry> ListRobots(string siteId, string? afterRobotId, int limit);
 }

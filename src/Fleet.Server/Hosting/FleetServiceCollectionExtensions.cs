@@ -50,6 +50,8 @@ public static class FleetServiceCollectionExtensions
         services.AddSingleton<ISiteRegistry>(sp => new SqliteSiteRegistry(options.DataDirectory, sp.GetRequiredService<TimeProvider>()));
         services.AddSingleton(sp => new FleetInstruments(sp.GetRequiredService<System.Diagnostics.Metrics.IMeterFactory>(), options.RobotMetricLabels));
         services.AddSingleton<IBiasModelLoader, BiasModelFileLoader>();
+        services.AddSingleton<RobotActivityLog>();
+        services.AddHostedService<RobotActivityFlusher>();
         services.AddSingleton<SiteModelCache>();
         services.AddSingleton<PoseHub>();
         services.AddSingleton<AnchorHealthTracker>();

@@ -207,19 +207,31 @@ public sealed class SqliteSiteRegistry : ISiteRegistry, IDisposable
         }
     }
 
-    public RobotEntry TouchRobot(string siteId, string robotId, MotionModelKind defaultMotion)
+    public void TouchRobots(IReadOnlyCollection<RobotSighting> sightings, MotionModelKind defaultMotion)
     {
+        if (sightings.Count == 0)
+        {
+            return;
+        }
+
         lock (_writeGate)
         {
             using var db = Open();
-            var now = Now();
-            Execute(db, """
+            using var tx = new WriteTransaction(db);
+            using var cmd = Command(db, """
                 INSERT INTO robots(site_id, robot_id, tag_x, tag_y, tag_z, motion, first_seen_ms, last_seen_ms)
-                VALUES ($s, $r, 0, 0, 0, $m, $now, $now)
-                ON CONFLICT(site_id, robot_id) DO UPDATE SET last_seen_ms = $now
-                """,
-                ("$s", siteId), ("$r", robotId), ("$m", MotionName(defaultMotion)), ("$now", now));
-            return ReadRobot(db, siteId, robotId)!;
+                SELECT $s, $r, 0, 0, 0, $m, $t, $t WHERE EXISTS (SELECT 1 FROM sites WHERE site_id = $s)
+                ON CONFLICT(site_id, robot_id) DO UPDATE SET last_seen_ms = MAX(last_seen_ms, excluded.last_seen_ms)
+                """, ("$s", string.Empty), ("$r", string.Empty), ("$m", MotionName(defaultMotion)), ("$t", 0L));
+            foreach (var sighting in sightings)
+            {
+                cmd.Parameters["$s"].Value = sighting.SiteId;
+                cmd.Parameters["$r"].Value = sighting.RobotId;
+                cmd.Parameters["$t"].Value = sighting.Seen.ToUnixTimeMilliseconds();
+                cmd.ExecuteNonQuery();
+            }
+
+            tx.Commit();
         }
     }
 
