@@ -69,7 +69,10 @@ public sealed partial class RobotGrain(
             activityLog.Mark(_siteId, _robotId);
         }
 
-        return GrainFactory.GetGrain<ISiteGrain>(_siteId).DetachRobot(_robotId);
+        // At shutdown the site grain goes away too; nothing to detach from.
+        return reason.ReasonCode == DeactivationReasonCode.ShuttingDown
+            ? Task.CompletedTask
+            : GrainFactory.GetGrain<ISiteGrain>(_siteId).DetachRobot(_robotId);
     }
 
     public Task<RobotBatchResult> Ingest(RobotBatch batch)

@@ -89,6 +89,13 @@ public sealed record IngestBenchmarkResult
     [JsonPropertyName("filter_bytes_per_robot")]
     public double FilterBytesPerRobot { get; init; }
 
+    /// <summary>Process CPU time per measurement in the timed phase (client and server together; robust to other load).</summary>
+    [JsonPropertyName("cpu_us_per_measurement")]
+    public double CpuMicrosecondsPerMeasurement { get; init; }
+
+    [JsonPropertyName("noop_cpu_us_per_measurement")]
+    public double NoopCpuMicrosecondsPerMeasurement { get; init; }
+
     [JsonPropertyName("streams")]
     public int Streams { get; init; }
 
@@ -154,6 +161,7 @@ public static class IngestBenchmark
                 RejectedFraction = run.Samples > 0 ? (double)run.Rejected / run.Samples : 0,
                 HeapBytesPerRobot = (heapAfter - heapBefore) / (double)options.Robots,
                 FilterBytesPerRobot = filterBytes,
+                CpuMicrosecondsPerMeasurement = run.CpuMicrosecondsPerSample,
             };
             await server.StopAsync(cancellationToken);
         }
@@ -167,7 +175,12 @@ public static class IngestBenchmark
             var run = await SendAsync(channel, timed, options, cancellationToken);
             var noopRate = run.Samples / run.Seconds;
             await noop.StopAsync(cancellationToken);
-            return real with { NoopMeasurementsPerSecond = noopRate, RatioToNoop = real.MeasurementsPerSecond / noopRate };
+            return real with
+            {
+                NoopMeasurementsPerSecond = noopRate,
+                RatioToNoop = real.MeasurementsPerSecond / noopRate,
+                NoopCpuMicrosecondsPerMeasurement = run.CpuMicrosecondsPerSample,
+            };
         }
     }
 
@@ -270,13 +283,17 @@ public static class IngestBenchmark
 
     private static List<MeasurementBatch>[] NewStreams(int count) => Enumerable.Range(0, count).Select(_ => new List<MeasurementBatch>()).ToArray();
 
-    private sealed record RunFigures(long Samples, long Rejected, double Seconds, double[] AckMs);
+    private sealed record RunFigures(long Samples, long Rejected, double Seconds, double[] AckMs, double CpuMicroseconds)
+    {
+        public double CpuMicrosecondsPerSample => Samples > 0 ? CpuMicroseconds / Samples : double.NaN;
+    }
 
     private static async Task<RunFigures> SendAsync(GrpcChannel channel, List<MeasurementBatch>[] streams, IngestBenchmarkOptions options, CancellationToken cancellationToken)
     {
         var client = new IngestService.IngestServiceClient(channel);
         var acks = new ConcurrentQueue<double>();
         long samples = 0, rejected = 0;
+        var cpuBefore = Process.GetCurrentProcess().TotalProcessorTime;
         var started = Stopwatch.GetTimestamp();
         await Task.WhenAll(streams.Select(async batches =>
         {
@@ -309,7 +326,8 @@ public static class IngestBenchmark
             await reader;
         }));
         var seconds = Stopwatch.GetElapsedTime(started).TotalSeconds;
-        return new RunFigures(samples, rejected, seconds, acks.Order().ToArray());
+        var cpu = (Process.GetCurrentProcess().TotalProcessorTime - cpuBefore).TotalMicroseconds;
+        return new RunFigures(samples, rejected, seconds, acks.Order().ToArray(), cpu);
     }
 
     private static async Task<WebApplication> StartAsync(bool noop, CancellationToken cancellationToken)
