@@ -84,7 +84,7 @@ public class MeasurementGeneratorTests
     [Fact]
     public void Generate_Rates_MatchOptions()
     {
-        var options = Short with { TdoaRateHz = 60, DropoutProbability = 0 };
+        var options = Short with { TdoaRateHz = 60, DropoutProbability = 0, RackAttenuationLengthMetres = double.PositiveInfinity };
         var records = new MeasurementGenerator(options).Generate().ToList();
         foreach (var robot in records.OfType<RobotRecord>())
         {

@@ -44,6 +44,7 @@ internal sealed class TerminalProgress : IDisposable
         if (_drawn)
         {
             Console.Error.Write("\r" + new string(' ', 118) + "\r");
+            _drawn = false;
         }
     }
 }

@@ -37,6 +37,9 @@ public sealed class RobotFilter
     private const double MinimumWindowForRatio = 8;
     private const double HeadingFromVelocityMinSpeed = 0.2;
 
+    /// <summary>Pose covariance index of each constant-velocity state (x, y, z, vx, vy, vz → 0, 1, 2, 4, 5, 6).</summary>
+    private static readonly int[] ConstantVelocityToPose = [0, 1, 2, 4, 5, 6];
+
     private readonly FilterOptions _options;
     private readonly MotionModelKind _kind;
     private readonly bool _planar;
@@ -215,9 +218,14 @@ public sealed class RobotFilter
             throw new ArgumentException("seed time, position and yaw must be finite");
         }
 
-        if (!(positionSigma > 0) || !double.IsFinite(positionSigma) || !(yawSigma > 0))
+        if (!(positionSigma > 0) || !double.IsFinite(positionSigma))
         {
-            throw new ArgumentOutOfRangeException(nameof(positionSigma), "seed sigmas must be positive (position finite)");
+            throw new ArgumentOutOfRangeException(nameof(positionSigma), positionSigma, "must be positive and finite");
+        }
+
+        if (!(yawSigma > 0))
+        {
+            throw new ArgumentOutOfRangeException(nameof(yawSigma), yawSigma, "must be positive (+∞ means unknown)");
         }
 
         ClearTrack();
@@ -764,7 +772,6 @@ public sealed class RobotFilter
 
         // Drop what fell out of the window; if still full, drop the oldest.
         var keep = 0;
-        var oldest = -1;
         for (var i = 0; i < _burstCount; i++)
         {
             if (_burst[i].Time >= _time - _options.InitBurstWindowSeconds)
@@ -776,7 +783,7 @@ public sealed class RobotFilter
         _burstCount = keep;
         if (_burstCount == _burst.Length)
         {
-            oldest = 0;
+            var oldest = 0;
             for (var i = 1; i < _burstCount; i++)
             {
                 if (_burst[i].Time < _burst[oldest].Time)
@@ -1055,7 +1062,7 @@ public sealed class RobotFilter
             into.TagPosition = pos;
             into.Velocity = new Vector3D(x[3], x[4], x[5]);
             into.Yaw = 0;
-            ReadOnlySpan<int> map = [0, 1, 2, 4, 5, 6];
+            var map = ConstantVelocityToPose;
             for (var i = 0; i < n; i++)
             {
                 for (var j = 0; j < n; j++)

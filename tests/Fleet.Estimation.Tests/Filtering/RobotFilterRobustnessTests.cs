@@ -155,11 +155,15 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
         Assert.NotEqual(RejectionReason.TooLate, filter.Submit(new TdoaMeasurement(0.41, 2, 3, Ddiff(map, new Vector3D(10, 5, 0.5), 2, 3))).Reason);
     }
 
-    [Fact]
-    public void Submit_SteadyState_DoesNotAllocate()
+    [Theory]
+    [InlineData(MotionModelKind.PlanarOdometry, 0.05)]
+    [InlineData(MotionModelKind.PlanarOdometry, 3.0)]
+    [InlineData(MotionModelKind.ConstantVelocity3D, 0.05)]
+    public void Submit_SteadyState_DoesNotAllocate(MotionModelKind motion, double seedYawSigma)
     {
-        // 10,000 steady-state submissions (TDOA and odometry, some out of order, some gated) plus pose reads.
-        var (filter, _) = TrackedFilter(MotionModelKind.PlanarOdometry, 5, bias: new ConstantBias());
+        // 10,000 steady-state submissions (TDOA and odometry, some out of order, some gated) plus pose reads;
+        // planar with a known heading, planar with an unknown heading (static robot: never aligns), constant velocity.
+        var (filter, _) = TrackedFilter(motion, 5, bias: new ConstantBias(), seedYawSigma: seedYawSigma);
         var map = filter.AnchorMap;
         var pose = new PoseEstimate();
         var rng = new Random(3);
@@ -185,6 +189,7 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
         Assert.Equal(0, allocated);
         Assert.Equal(reinitialisations, filter.Counters.Reinitialisations);
         Assert.Equal(TrackingState.Locked, filter.State);
+        Assert.Equal(motion == MotionModelKind.PlanarOdometry && seedYawSigma < 1, filter.HeadingKnown);
         Assert.True(filter.Counters.ReorderedApplied > 100);
         Assert.True(filter.Counters.RejectedFor(RejectionReason.ChiSquareGate) > 100);
 
@@ -312,6 +317,54 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void State_ManyRecentRejections_GoesUncertainThenRecovers()
+    {
+        var (filter, _) = TrackedFilter(MotionModelKind.PlanarOdometry, 5);
+        var changes = new List<(TrackingState From, TrackingState To)>();
+        filter.StateChanged += (from, to, _) => changes.Add((from, to));
+        var map = filter.AnchorMap;
+        var pose = new PoseEstimate();
+        var rng = new Random(10);
+        var t = filter.LastTime;
+
+        // Alternate one good TDOA with two gross outliers: two thirds rejected, never 30 in a row.
+        for (var k = 1; k <= 60; k++)
+        {
+            filter.GetPose(pose);
+            var a = rng.Next(8);
+            var b = (a + 1 + rng.Next(7)) % 8;
+            var bad = k % 3 != 0;
+            filter.Submit(new TdoaMeasurement(t + (k * 0.001), a, b, Ddiff(map, pose.TagPosition, a, b) + (bad ? 3.0 : 0.0)));
+        }
+
+        Assert.Equal(TrackingState.Uncertain, filter.State);
+        Assert.InRange(filter.RecentRejectionRatio, 0.6, 0.7);
+        for (var k = 61; k <= 120; k++)
+        {
+            filter.GetPose(pose);
+            var a = rng.Next(8);
+            var b = (a + 1 + rng.Next(7)) % 8;
+            filter.Submit(new TdoaMeasurement(t + (k * 0.001), a, b, Ddiff(map, pose.TagPosition, a, b)));
+        }
+
+        Assert.Equal(TrackingState.Locked, filter.State);
+        Assert.Equal([(TrackingState.Locked, TrackingState.Uncertain), (TrackingState.Uncertain, TrackingState.Locked)], changes);
+        Assert.Equal(0, filter.Counters.Reinitialisations);
+    }
+
+    [Fact]
+    public void SubmitOdometry_ConstantVelocityModel_IsIgnored()
+    {
+        var (filter, _) = TrackedFilter(MotionModelKind.ConstantVelocity3D, 2);
+        var before = filter.StateVector.ToArray();
+        var ignored = filter.Counters.Ignored;
+        var r = filter.SubmitOdometry(new OdometryMeasurement(filter.LastTime + 0.01, 1.0, 0.1));
+        Assert.Equal(UpdateOutcome.Ignored, r.Outcome);
+        Assert.Equal(before, filter.StateVector.ToArray());
+        Assert.Equal(ignored + 1, filter.Counters.Ignored);
+    }
+
+    [Fact]
     public void Options_Invalid_ThrowArgumentException()
     {
         var map = TestSites.Hall();
@@ -390,14 +443,15 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
         Assert.True(filter.Counters.Accepted > 0.8 * run.TdoaCount);
     }
 
-    private static (RobotFilter Filter, List<SimEvent> Events) TrackedFilter(MotionModelKind motion, double duration, ITdoaBiasModel? bias = null)
+    private static (RobotFilter Filter, List<SimEvent> Events) TrackedFilter(MotionModelKind motion, double duration, ITdoaBiasModel? bias = null, double seedYawSigma = 0.05)
     {
         var map = TestSites.Hall();
-        var run = new SyntheticRun { Map = map, Truth = SyntheticRun.Circle(new Vector3D(15, 10, 0), 6, 1.2), Lever = Lever, Duration = duration, Seed = 77 };
+        var truth = seedYawSigma < 1 ? SyntheticRun.Circle(new Vector3D(15, 10, 0), 6, 1.2) : SyntheticRun.Static(new Vector3D(21, 10, 0));
+        var run = new SyntheticRun { Map = map, Truth = truth, Lever = Lever, Duration = duration, Seed = 77 };
         var events = run.Generate();
         var filter = new RobotFilter(map, new FilterOptions { Motion = motion, TagLeverArm = Lever }, bias);
         var (r0, y0, _, _) = run.Truth(0);
-        filter.SeedPose(run.StartTime - 0.01, motion == MotionModelKind.PlanarOdometry ? r0 : run.TagAt(run.StartTime), y0, 0.1, 0.05);
+        filter.SeedPose(run.StartTime - 0.01, motion == MotionModelKind.PlanarOdometry ? r0 : run.TagAt(run.StartTime), y0, 0.1, seedYawSigma);
         foreach (var e in events)
         {
             SyntheticRun.Submit(filter, e);

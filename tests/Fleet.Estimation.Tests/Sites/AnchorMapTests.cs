@@ -1,7 +1,7 @@
 using Fleet.Estimation.Anchors;
 using Fleet.Estimation.Geometry;
 
-namespace Fleet.Estimation.Tests.Anchors;
+namespace Fleet.Estimation.Tests.Sites;
 
 public class AnchorMapTests
 {

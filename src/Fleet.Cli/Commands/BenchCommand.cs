@@ -1,0 +1,57 @@
+using System.CommandLine;
+using System.Globalization;
+using Fleet.Cli.Output;
+using Fleet.Performance;
+
+namespace Fleet.Cli.Commands;
+
+/// <summary>`fleet bench …`: side-by-side ratios measured in one process run.</summary>
+internal static class BenchCommand
+{
+    public static Command Create()
+    {
+        var bench = new Command("bench", "Measure Fleet against reference implementations in the same run and print ratios.");
+        bench.Subcommands.Add(CreateFilter());
+        return bench;
+    }
+
+    private static Command CreateFilter()
+    {
+        var json = new Option<bool>("--json") { Description = "Print one JSON object" };
+        var rounds = new Option<int>("--rounds") { Description = "Alternating timing rounds (median reported)", DefaultValueFactory = _ => 7 };
+        var command = new Command("filter", "One robust TDOA update in Fleet against a textbook EKF on MathNet dense matrices.") { json, rounds };
+        command.SetAction(parse => FleetCommandLine.Guarded(() =>
+        {
+            var result = FilterBenchmarkRunner.Run(parse.GetValue(rounds));
+            if (parse.GetValue(json))
+            {
+                Console.WriteLine(CliJson.Serialize(new Dictionary<string, object>
+                {
+                    ["ns_per_update"] = CliJson.Round(result.NsPerUpdate, 1),
+                    ["ns_per_update_reference"] = CliJson.Round(result.NsPerUpdateReference, 1),
+                    ["speedup"] = CliJson.Round(result.Speedup, 2),
+                    ["bytes_per_update"] = CliJson.Round(result.BytesPerUpdate, 2),
+                    ["bytes_per_update_reference"] = CliJson.Round(result.BytesPerUpdateReference, 1),
+                    ["ns_per_bias_correction"] = CliJson.Round(result.NsPerBiasCorrection, 1),
+                    ["bytes_per_bias_correction"] = CliJson.Round(result.BytesPerBiasCorrection, 2),
+                    ["updates"] = result.Updates,
+                    ["reference_updates"] = result.ReferenceUpdates,
+                    ["rounds"] = result.Rounds,
+                }));
+            }
+            else
+            {
+                Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+                    $"Fleet robust update     {result.NsPerUpdate,10:0.0} ns  {result.BytesPerUpdate,8:0.0} B/update"));
+                Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+                    $"MathNet reference EKF   {result.NsPerUpdateReference,10:0.0} ns  {result.BytesPerUpdateReference,8:0.0} B/update"));
+                Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
+                    $"bias correction (3×30)  {result.NsPerBiasCorrection,10:0.0} ns  {result.BytesPerBiasCorrection,8:0.0} B/TDOA"));
+                Console.WriteLine(string.Create(CultureInfo.InvariantCulture, $"speedup {result.Speedup:0.0}× (median of {result.Rounds} alternating rounds)"));
+            }
+
+            return 0;
+        }));
+        return command;
+    }
+}

@@ -1,7 +1,0 @@
-namespace Fleet.Cli.Tests;
-
-public class SmokeTests
-{
-    [Fact]
-    public void Assembly_Loads() => Assert.NotNull(typeof(SmokeTests).Assembly);
-}
