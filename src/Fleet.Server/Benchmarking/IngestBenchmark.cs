@@ -6,14 +6,13 @@ using Fleet.Contracts.V1;
 using Fleet.Estimation.Filtering;
 using Fleet.Estimation.Measurements;
 using Fleet.Grains.Telemetry;
-using Fleet.Server;
 using Fleet.Server.Clients;
 using Fleet.Simulation;
 using Grpc.Net.Client;
 using Microsoft.AspNetCore.Builder;
 using Microsoft.Extensions.Configuration;
 
-namespace Fleet.Performance;
+namespace Fleet.Server.Benchmarking;
 
 /// <summary>Settings of <see cref="IngestBenchmark"/>.</summary>
 public sealed record IngestBenchmarkOptions
