@@ -34,11 +34,31 @@ public static class FleetServerHost
         return app;
     }
 
+    /// <summary>
+    /// Builds and starts the server. When a port picked for a 0 setting was taken by someone else between picking and
+    /// binding (possible on a busy machine), it retries with fresh ports, up to <paramref name="attempts"/> times.
+    /// </summary>
+    public static async Task<WebApplication> StartAsync(string[] args, Action<WebApplicationBuilder>? configure = null, int attempts = 3, CancellationToken cancellationToken = default)
+    {
+        for (var attempt = 1; ; attempt++)
+        {
+            var app = BuildApp(args, configure);
+            try
+            {
+                await app.StartAsync(cancellationToken);
+                return app;
+            }
+            catch (Exception e) when (attempt < attempts && IsAddressInUse(e))
+            {
+                await app.DisposeAsync();
+            }
+        }
+    }
+
     /// <summary>Builds, starts and runs the server until <paramref name="cancellationToken"/> fires or the host is stopped.</summary>
     public static async Task<int> RunAsync(string[] args, Action<WebApplicationBuilder>? configure = null, CancellationToken cancellationToken = default)
     {
-        await using var app = BuildApp(args, configure);
-        await app.StartAsync(cancellationToken);
+        await using var app = await StartAsync(args, configure, cancellationToken: cancellationToken);
         await app.WaitForShutdownAsync(cancellationToken);
         return 0;
     }
@@ -52,6 +72,25 @@ public static class FleetServerHost
         var o = GetOptions(app);
         var host = o.ListenAddress is "localhost" or "*" or "0.0.0.0" or "::" ? "127.0.0.1" : o.ListenAddress;
         return new Uri($"http://{(host.Contains(':', StringComparison.Ordinal) ? $"[{host}]" : host)}:{o.GrpcPort}");
+    }
+
+    private static bool IsAddressInUse(Exception? e)
+    {
+        for (; e is not null; e = e.InnerException)
+        {
+            if (e is System.Net.Sockets.SocketException { SocketErrorCode: System.Net.Sockets.SocketError.AddressAlreadyInUse }
+                or Microsoft.AspNetCore.Connections.AddressInUseException)
+            {
+                return true;
+            }
+
+            if (e is AggregateException aggregate && aggregate.InnerExceptions.Any(IsAddressInUse))
+            {
+                return true;
+            }
+        }
+
+        return false;
     }
 
     private static void MapFleetEndpoints(this WebApplication app, FleetServerOptions options)

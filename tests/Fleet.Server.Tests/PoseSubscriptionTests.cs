@@ -87,3 +87,58 @@ public sealed class PoseSubscriptionTests
         Covariance = new double[49],
     };
 }
+
+/// <summary>Per-robot rate cap: updates inside a robot's interval are held back and coalesced, never lost.</summary>
+public sealed class PoseSubscriptionRateCapTests
+{
+    [Fact]
+    public void Drain_SecondUpdateInsideInterval_HeldUntilSlotOpensThenLatestSent()
+    {
+        var time = new ManualTime();
+        var services = new ServiceCollection().AddMetrics().BuildServiceProvider();
+        var hub = new PoseHub(new FleetInstruments(services.GetRequiredService<IMeterFactory>()));
+        using var subscription = hub.Subscribe(new PoseFilter { SiteId = "s", MaxRatePerRobotHz = 10 }, capacity: 8, time);
+        var drained = new List<PoseSnapshot>();
+
+        hub.Publish(Pose(1.0));
+        Assert.Null(subscription.Drain(drained, 10));
+        Assert.Single(drained);
+
+        // 20 ms later two more updates: both inside the 100 ms slot, so they wait and coalesce to the newer.
+        time.Advance(TimeSpan.FromMilliseconds(20));
+        hub.Publish(Pose(1.02));
+        hub.Publish(Pose(1.04));
+        drained.Clear();
+        var wait = subscription.Drain(drained, 10);
+        Assert.Empty(drained);
+        Assert.NotNull(wait);
+        Assert.InRange(wait.Value.TotalMilliseconds, 79.0, 81.0);
+
+        time.Advance(TimeSpan.FromMilliseconds(80));
+        Assert.Null(subscription.Drain(drained, 10));
+        Assert.Equal(1.04, Assert.Single(drained).Time, 12);
+        Assert.Equal(1, subscription.Dropped);
+        services.Dispose();
+    }
+
+    private static PoseSnapshot Pose(double time) => new()
+    {
+        SiteId = "s",
+        RobotId = "tug-01",
+        Time = time,
+        Position = new Vec3(1, 1, 0.5),
+        Covariance = new double[49],
+    };
+
+    /// <summary>A clock that moves only when told.</summary>
+    private sealed class ManualTime : TimeProvider
+    {
+        private long _ticks;
+
+        public override long TimestampFrequency => 1_000_000;
+
+        public override long GetTimestamp() => _ticks;
+
+        public void Advance(TimeSpan by) => _ticks += (long)(by.TotalSeconds * TimestampFrequency);
+    }
+}

@@ -55,8 +55,7 @@ public sealed class ServerHarness : IAsyncDisposable
             config[key] = value;
         }
 
-        var app = FleetServerHost.BuildApp([], builder => builder.Configuration.AddInMemoryCollection(config));
-        await app.StartAsync().WaitAsync(TimeSpan.FromSeconds(60));
+        var app = await FleetServerHost.StartAsync([], builder => builder.Configuration.AddInMemoryCollection(config)).WaitAsync(TimeSpan.FromSeconds(90));
         return new ServerHarness(app, dataDirectory);
     }
 

@@ -343,9 +343,7 @@ public static class IngestBenchmark
             ["Fleet:Server:NoopIngest"] = noop ? "true" : "false",
             ["Logging:LogLevel:Default"] = "Warning",
         };
-        var app = FleetServerHost.BuildApp([], builder => builder.Configuration.AddInMemoryCollection(settings));
-        await app.StartAsync(cancellationToken);
-        return app;
+        return await FleetServerHost.StartAsync([], builder => builder.Configuration.AddInMemoryCollection(settings), cancellationToken: cancellationToken);
     }
 
     private static MeterListener ListenToLatency(ConcurrentQueue<double> into)
