@@ -1,0 +1,393 @@
+using System.Diagnostics;
+using Fleet.Estimation.Anchors;
+using Fleet.Estimation.Filtering;
+using Fleet.Estimation.Geometry;
+using Fleet.Estimation.Measurements;
+using Fleet.Grains.Health;
+using Fleet.Grains.Models;
+using Fleet.Grains.Registry;
+using Fleet.Grains.Streaming;
+using Fleet.Grains.Telemetry;
+using Microsoft.Extensions.Logging;
+using Microsoft.Extensions.Options;
+
+namespace Fleet.Grains;
+
+/// <summary>
+/// One robot's filter. Runs each batch through <see cref="RobotFilter"/> in time order, publishes the new pose to the
+/// silo's <see cref="PoseHub"/>, and tallies per-anchor health. Site configuration arrives from the site grain.
+/// </summary>
+public sealed partial class RobotGrain(
+    SiteModelCache models,
+    ISiteRegistry registry,
+    RobotActivityLog activityLog,
+    PoseHub hub,
+    AnchorHealthTracker anchorHealth,
+    FleetInstruments instruments,
+    IOptions<FleetGrainOptions> options,
+    ILogger<RobotGrain> logger) : Grain, IRobotGrain
+{
+    private readonly PoseEstimate _pose = new();
+    private readonly int[] _rejectedByReason = new int[RobotBatchResult.ReasonCount];
+    private readonly List<SampleRejectionEntry> _rejections = [];
+
+    private string _siteId = string.Empty;
+    private string _robotId = string.Empty;
+    private SiteConfig _config = new(string.Empty, false, 0, 0);
+    private RobotEntry? _settings;
+    private AnchorMap? _map;
+    private string[] _anchorIds = [];
+    private RobotFilter? _filter;
+    private int[] _anchorUsed = [];
+    private int[] _anchorRejected = [];
+    private double[] _anchorNisSum = [];
+    private int[] _anchorNisCount = [];
+    private bool _seenSinceHeartbeat;
+
+    public override async Task OnActivateAsync(CancellationToken cancellationToken)
+    {
+        (_siteId, _robotId) = GrainKeys.ParseRobot(this.GetPrimaryKeyString());
+        _config = await GrainFactory.GetGrain<ISiteGrain>(_siteId).AttachRobot(_robotId);
+        if (_config.Exists)
+        {
+            _settings = registry.GetRobot(_siteId, _robotId);
+            activityLog.Mark(_siteId, _robotId);
+        }
+
+        BuildFilter();
+        instruments.RobotActivated(_siteId);
+        var heartbeat = options.Value.RobotHeartbeat;
+        this.RegisterGrainTimer(HeartbeatAsync, heartbeat, heartbeat);
+    }
+
+    public override Task OnDeactivateAsync(DeactivationReason reason, CancellationToken cancellationToken)
+    {
+        hub.Forget(_siteId, _robotId);
+        instruments.RobotDeactivated(_siteId);
+        if (_config.Exists && _seenSinceHeartbeat)
+        {
+            activityLog.Mark(_siteId, _robotId);
+        }
+
+        // At shutdown the site grain goes away too; nothing to detach from.
+        return reason.ReasonCode == DeactivationReasonCode.ShuttingDown
+            ? Task.CompletedTask
+            : GrainFactory.GetGrain<ISiteGrain>(_siteId).DetachRobot(_robotId);
+    }
+
+    public Task<RobotBatchResult> Ingest(RobotBatch batch)
+    {
+        using var activity = FleetInstruments.ActivitySource.StartActivity("fleet.robot.ingest");
+        activity?.SetTag(FleetInstrumentNames.Site, _siteId);
+        activity?.SetTag(FleetInstrumentNames.Robot, _robotId);
+        activity?.SetTag("fleet.batch.samples", batch.Count);
+        _seenSinceHeartbeat = true;
+
+        RobotBatchResult result;
+        if (!_config.Exists)
+        {
+            result = RobotBatchResult.RejectAll(batch, SampleRejectionReason.UnknownSite);
+        }
+        else if (_filter is null || _map is null)
+        {
+            result = RobotBatchResult.RejectAll(batch, SampleRejectionReason.NoAnchorMap);
+        }
+        else
+        {
+            result = Run(batch, _filter, _map);
+        }
+
+        instruments.RecordMeasurements(_siteId, _robotId, result.Accepted, result.DownWeighted, result.Buffered, result.RejectedByReason);
+        return Task.FromResult(result);
+    }
+
+    public Task<PoseSnapshot?> GetLatestPose()
+    {
+        if (_filter is null || _filter.State == TrackingState.Acquiring)
+        {
+            return Task.FromResult<PoseSnapshot?>(null);
+        }
+
+        _filter.GetPose(_pose);
+        return Task.FromResult<PoseSnapshot?>(Snapshot(_pose));
+    }
+
+    public Task<PoseSnapshot?> PredictPose(double time)
+    {
+        if (_filter is null || _filter.State == TrackingState.Acquiring || !double.IsFinite(time))
+        {
+            return Task.FromResult<PoseSnapshot?>(null);
+        }
+
+        _filter.PredictPose(time, _pose);
+        return Task.FromResult<PoseSnapshot?>(Snapshot(_pose));
+    }
+
+    public Task ApplySiteConfig(SiteConfig config)
+    {
+        var previous = _config;
+        _config = config;
+        if (_filter is null || previous.AnchorMapVersion == 0 || !previous.Exists)
+        {
+            if (config.Exists && _settings is null)
+            {
+                _settings = registry.GetRobot(_siteId, _robotId);
+                activityLog.Mark(_siteId, _robotId);
+            }
+
+            BuildFilter();
+            return Task.CompletedTask;
+        }
+
+        if (config.AnchorMapVersion != previous.AnchorMapVersion)
+        {
+            var map = models.GetAnchorMap(_siteId, config.AnchorMapVersion);
+            if (map is not null)
+            {
+                // The filter keeps its track across a map change; only the anchor geometry moves.
+                _filter.SetAnchorMap(map);
+                UseMap(map);
+            }
+        }
+
+        if (config.BiasModelVersion != previous.BiasModelVersion)
+        {
+            _filter.SetBiasModel(LoadBiasModel(config.BiasModelVersion));
+        }
+
+        return Task.CompletedTask;
+    }
+
+    public Task ReloadSettings()
+    {
+        _settings = registry.GetRobot(_siteId, _robotId) ?? _settings;
+        _filter = null;
+        BuildFilter();
+        return Task.CompletedTask;
+    }
+
+    private RobotBatchResult Run(RobotBatch batch, RobotFilter filter, AnchorMap map)
+    {
+        Array.Clear(_rejectedByReason);
+        _rejections.Clear();
+        int accepted = 0, downWeighted = 0, buffered = 0, rejected = 0;
+        var truncated = false;
+
+        // Merge the two sorted lists by time so odometry and TDOA reach the filter in order.
+        int i = 0, j = 0;
+        var tdoaCount = batch.TdoaTimes.Length;
+        var odometryCount = batch.OdometryTimes.Length;
+        while (i < tdoaCount || j < odometryCount)
+        {
+            UpdateResult update;
+            SampleKind kind;
+            int index;
+            if (j < odometryCount && (i >= tdoaCount || batch.OdometryTimes[j] <= batch.TdoaTimes[i]))
+            {
+                kind = SampleKind.Odometry;
+                index = j;
+                update = filter.SubmitOdometry(new OdometryMeasurement(batch.OdometryTimes[j], batch.ForwardSpeeds[j], batch.YawRates[j]));
+                j++;
+            }
+            else
+            {
+                kind = SampleKind.Tdoa;
+                index = i;
+                update = SubmitTdoa(filter, map, batch, i);
+                i++;
+            }
+
+            switch (update.Outcome)
+            {
+                case UpdateOutcome.Accepted:
+                    accepted++;
+                    break;
+                case UpdateOutcome.DownWeighted:
+                    downWeighted++;
+                    break;
+                case UpdateOutcome.Buffered:
+                    buffered++;
+                    break;
+                default:
+                    rejected++;
+                    var reason = update.Reason == RejectionReason.UnknownAnchor && kind == SampleKind.Tdoa
+                        ? SampleRejectionReason.UnknownAnchor
+                        : Map(update.Reason);
+                    _rejectedByReason[(int)reason]++;
+                    if (_rejections.Count < RobotBatchResult.MaxItemisedRejections)
+                    {
+                        _rejections.Add(new SampleRejectionEntry(kind, index, reason));
+                    }
+                    else
+                    {
+                        truncated = true;
+                    }
+
+                    break;
+            }
+        }
+
+        anchorHealth.Record(_siteId, _anchorIds, _anchorUsed, _anchorRejected, _anchorNisSum, _anchorNisCount);
+        Array.Clear(_anchorUsed);
+        Array.Clear(_anchorRejected);
+        Array.Clear(_anchorNisSum);
+        Array.Clear(_anchorNisCount);
+
+        if (batch.Count > 0 && filter.State != TrackingState.Acquiring)
+        {
+            filter.GetPose(_pose);
+            hub.Publish(Snapshot(_pose));
+            instruments.IngestLatency.Record(Stopwatch.GetElapsedTime(batch.ReceivedTimestamp).TotalSeconds,
+                new KeyValuePair<string, object?>(FleetInstrumentNames.Site, _siteId));
+        }
+
+        return new RobotBatchResult
+        {
+            Accepted = accepted,
+            DownWeighted = downWeighted,
+            Buffered = buffered,
+            Rejected = rejected,
+            RejectedByReason = (int[])_rejectedByReason.Clone(),
+            Rejections = [.. _rejections],
+            RejectionsTruncated = truncated,
+        };
+    }
+
+    private UpdateResult SubmitTdoa(RobotFilter filter, AnchorMap map, RobotBatch batch, int i)
+    {
+        if (!map.TryGetIndex(batch.AnchorA[i], out var a) || !map.TryGetIndex(batch.AnchorB[i], out var b))
+        {
+            return UpdateResult.Reject(RejectionReason.UnknownAnchor);
+        }
+
+        var update = filter.Submit(new TdoaMeasurement(batch.TdoaTimes[i], a, b, batch.DistanceDifferences[i]));
+        if (update.Outcome == UpdateOutcome.Rejected)
+        {
+            _anchorRejected[a]++;
+            _anchorRejected[b]++;
+        }
+        else
+        {
+            _anchorUsed[a]++;
+            _anchorUsed[b]++;
+            if (double.IsFinite(update.NormalizedInnovationSquared))
+            {
+                _anchorNisSum[a] += update.NormalizedInnovationSquared;
+                _anchorNisSum[b] += update.NormalizedInnovationSquared;
+                _anchorNisCount[a]++;
+                _anchorNisCount[b]++;
+            }
+        }
+
+        return update;
+    }
+
+    private void BuildFilter()
+    {
+        var map = _config.Exists ? models.GetAnchorMap(_siteId, _config.AnchorMapVersion) : null;
+        if (map is null)
+        {
+            _filter = null;
+            _map = null;
+            return;
+        }
+
+        var o = options.Value;
+        var defaults = new FilterOptions();
+        var filterOptions = new FilterOptions
+        {
+            Motion = _settings?.Motion ?? o.DefaultMotion,
+            TagLeverArm = _settings?.TagOffset ?? Vector3D.Zero,
+            Kernel = o.Kernel ?? defaults.Kernel,
+            TdoaSigmaMetres = o.TdoaSigmaMetres ?? defaults.TdoaSigmaMetres,
+            ReorderLagSeconds = o.ReorderLagSeconds ?? defaults.ReorderLagSeconds,
+        };
+        _filter = new RobotFilter(map, filterOptions, LoadBiasModel(_config.BiasModelVersion));
+        UseMap(map);
+    }
+
+    private Estimation.Bias.ITdoaBiasModel? LoadBiasModel(int version)
+    {
+        try
+        {
+            return models.CreateBiasModel(_siteId, version);
+        }
+        catch (Exception e) when (e is InvalidDataException or ArgumentException or NotSupportedException)
+        {
+            // The bytes were checked at upload; a model that still fails must not take the robot down.
+            LogBiasModelFailed(logger, e, _siteId, version);
+            return null;
+        }
+    }
+
+    private void UseMap(AnchorMap map)
+    {
+        _map = map;
+        var ids = new string[map.Count];
+        for (var k = 0; k < ids.Length; k++)
+        {
+            ids[k] = map[k].Id;
+        }
+
+        _anchorIds = ids;
+        _anchorUsed = new int[map.Count];
+        _anchorRejected = new int[map.Count];
+        _anchorNisSum = new double[map.Count];
+        _anchorNisCount = new int[map.Count];
+    }
+
+    private async Task HeartbeatAsync(CancellationToken cancellationToken)
+    {
+        var config = await GrainFactory.GetGrain<ISiteGrain>(_siteId).AttachRobot(_robotId);
+        if (config != _config)
+        {
+            await ApplySiteConfig(config);
+        }
+
+        if (_seenSinceHeartbeat && _config.Exists)
+        {
+            _seenSinceHeartbeat = false;
+            activityLog.Mark(_siteId, _robotId);
+        }
+    }
+
+    private PoseSnapshot Snapshot(PoseEstimate pose) => new()
+    {
+        SiteId = _siteId,
+        RobotId = _robotId,
+        Time = pose.Time,
+        Position = ToVec(pose.Position),
+        TagPosition = ToVec(pose.TagPosition),
+        Yaw = pose.Yaw,
+        Velocity = ToVec(pose.Velocity),
+        Covariance = (double[])pose.Covariance.Clone(),
+        State = pose.State switch
+        {
+            TrackingState.Acquiring => RobotTrackState.Acquiring,
+            TrackingState.Locked => RobotTrackState.Locked,
+            TrackingState.Uncertain => RobotTrackState.Uncertain,
+            TrackingState.Lost => RobotTrackState.Lost,
+            _ => RobotTrackState.Unknown,
+        },
+        RecentRejectionRatio = pose.RecentRejectionRatio,
+    };
+
+    private static Vec3 ToVec(Vector3D v) => new(v.X, v.Y, v.Z);
+
+    private static SampleRejectionReason Map(RejectionReason reason) => reason switch
+    {
+        RejectionReason.NonFinite => SampleRejectionReason.InvalidValue,
+        RejectionReason.UnknownAnchor => SampleRejectionReason.UnknownAnchor,
+        RejectionReason.SameAnchor => SampleRejectionReason.SameAnchor,
+        RejectionReason.TooLate => SampleRejectionReason.TooLate,
+        RejectionReason.TooFarInFuture => SampleRejectionReason.TooFarInFuture,
+        RejectionReason.ImpossibleValue => SampleRejectionReason.ImpossibleValue,
+        RejectionReason.ChiSquareGate => SampleRejectionReason.OutlierGate,
+        RejectionReason.ZeroWeight => SampleRejectionReason.ZeroWeight,
+        RejectionReason.NotInitialised => SampleRejectionReason.NotInitialised,
+        _ => SampleRejectionReason.InvalidValue,
+    };
+
+    [LoggerMessage(1, LogLevel.Warning, "Site {SiteId}: bias model v{Version} could not be loaded; running without bias correction")]
+    private static partial void LogBiasModelFailed(ILogger logger, Exception exception, string siteId, int version);
+}

@@ -1,0 +1,122 @@
+using System.Collections.Concurrent;
+using Fleet.Grains.Telemetry;
+
+namespace Fleet.Grains.Streaming;
+
+/// <summary>Which poses a subscriber wants: one site, optionally a robot list and/or a zone (site frame, m).</summary>
+public sealed class PoseFilter
+{
+    public required string SiteId { get; init; }
+
+    /// <summary>Null or empty: every robot.</summary>
+    public IReadOnlySet<string>? RobotIds { get; init; }
+
+    public Vec3? ZoneMin { get; init; }
+
+    public Vec3? ZoneMax { get; init; }
+
+    /// <summary>At most this many updates per second per robot; 0: no cap.</summary>
+    public double MaxRatePerRobotHz { get; init; }
+
+    public bool Matches(PoseSnapshot pose)
+    {
+        if (!string.Equals(pose.SiteId, SiteId, StringComparison.Ordinal))
+        {
+            return false;
+        }
+
+        if (RobotIds is { Count: > 0 } && !RobotIds.Contains(pose.RobotId))
+        {
+            return false;
+        }
+
+        if (ZoneMin is { } lo && ZoneMax is { } hi)
+        {
+            var p = pose.Position;
+            return p.X >= lo.X && p.X <= hi.X && p.Y >= lo.Y && p.Y <= hi.Y && p.Z >= lo.Z && p.Z <= hi.Z;
+        }
+
+        return true;
+    }
+}
+
+/// <summary>
+/// One per silo: robot grains publish each new pose here, and every open pose stream holds a
+/// <see cref="PoseSubscription"/>. Publishing never blocks on subscribers: it only replaces an entry in each
+/// matching subscriber's bounded queue. Also keeps the latest pose of each robot loaded on this silo.
+/// </summary>
+public sealed class PoseHub(FleetInstruments instruments)
+{
+    private readonly ConcurrentDictionary<(string SiteId, string RobotId), PoseSnapshot> _latest = new();
+    private readonly Lock _gate = new();
+    private PoseSubscription[] _subscriptions = [];
+
+    public int SubscriberCount => Volatile.Read(ref _subscriptions).Length;
+
+    public void Publish(PoseSnapshot pose)
+    {
+        _latest[(pose.SiteId, pose.RobotId)] = pose;
+        instruments.PosePublished(pose.SiteId);
+        var subscriptions = Volatile.Read(ref _subscriptions);
+        foreach (var subscription in subscriptions)
+        {
+            if (subscription.Filter.Matches(pose))
+            {
+                subscription.Offer(pose);
+            }
+        }
+    }
+
+    /// <summary>Drops the cached pose of a robot whose filter was unloaded.</summary>
+    public void Forget(string siteId, string robotId) => _latest.TryRemove((siteId, robotId), out _);
+
+    /// <summary>Latest poses of the site's robots loaded on this silo (unordered).</summary>
+    public List<PoseSnapshot> LatestOfSite(string siteId)
+    {
+        var list = new List<PoseSnapshot>();
+        foreach (var (key, pose) in _latest)
+        {
+            if (string.Equals(key.SiteId, siteId, StringComparison.Ordinal))
+            {
+                list.Add(pose);
+            }
+        }
+
+        return list;
+    }
+
+    public PoseSnapshot? Latest(string siteId, string robotId) => _latest.TryGetValue((siteId, robotId), out var pose) ? pose : null;
+
+    /// <summary>Opens a subscription holding at most <paramref name="capacity"/> robots' pending poses.</summary>
+    public PoseSubscription Subscribe(PoseFilter filter, int capacity, TimeProvider? timeProvider = null)
+    {
+        var subscription = new PoseSubscription(this, filter, capacity, timeProvider ?? TimeProvider.System);
+        lock (_gate)
+        {
+            _subscriptions = [.. _subscriptions, subscription];
+        }
+
+        instruments.SubscriberOpened(filter.SiteId);
+        return subscription;
+    }
+
+    internal void Unsubscribe(PoseSubscription subscription)
+    {
+        lock (_gate)
+        {
+            var index = Array.IndexOf(_subscriptions, subscription);
+            if (index < 0)
+            {
+                return;
+            }
+
+            _subscriptions = [.. _subscriptions.AsSpan(0, index), .. _subscriptions.AsSpan(index + 1)];
+        }
+
+        instruments.SubscriberClosed(subscription.Filter.SiteId);
+        instruments.UpdatesDropped(subscription.Filter.SiteId, subscription.TakeUnreportedDrops());
+    }
+
+    internal void ReportDrops(PoseSubscription subscription) =>
+        instruments.UpdatesDropped(subscription.Filter.SiteId, subscription.TakeUnreportedDrops());
+}

@@ -1,0 +1,392 @@
+using System.Collections.Concurrent;
+using System.Diagnostics;
+using System.Diagnostics.Metrics;
+using System.Text.Json.Serialization;
+using Fleet.Contracts.V1;
+using Fleet.Estimation.Filtering;
+using Fleet.Estimation.Measurements;
+using Fleet.Grains.Telemetry;
+using Fleet.Server.Clients;
+using Fleet.Simulation;
+using Grpc.Net.Client;
+using Microsoft.AspNetCore.Builder;
+using Microsoft.Extensions.Configuration;
+
+namespace Fleet.Server.Benchmarking;
+
+/// <summary>Settings of <see cref="IngestBenchmark"/>.</summary>
+public sealed record IngestBenchmarkOptions
+{
+    /// <summary>Robots the server tracks (each its own grain and filter).</summary>
+    public int Robots { get; init; } = 1000;
+
+    /// <summary>Distinct simulated trajectories; robot k replays trajectory k mod this (generation cost stays small).</summary>
+    public int SimulatedTrajectories { get; init; } = 50;
+
+    /// <summary>Simulated seconds of data sent in the timed phase (after <see cref="WarmupSeconds"/>).</summary>
+    public double DurationSeconds { get; init; } = 8;
+
+    public double WarmupSeconds { get; init; } = 1;
+
+    /// <summary>Simulated time covered by one batch.</summary>
+    public double BatchSeconds { get; init; } = 0.1;
+
+    /// <summary>Robots per batch message (a gateway's share).</summary>
+    public int RobotsPerBatch { get; init; } = 50;
+
+    /// <summary>Concurrent gateway streams.</summary>
+    public int Streams { get; init; } = 4;
+
+    /// <summary>Unacknowledged batches a stream may have outstanding.</summary>
+    public int MaxInFlightPerStream { get; init; } = 4;
+
+    public int Seed { get; init; } = 1;
+
+    public string Layout { get; init; } = WarehouseSites.Tall;
+}
+
+/// <summary>Figures of one run. JSON names are the keys `fleet bench ingest --json` reports.</summary>
+public sealed record IngestBenchmarkResult
+{
+    [JsonPropertyName("robots")]
+    public int Robots { get; init; }
+
+    [JsonPropertyName("measurements")]
+    public long Measurements { get; init; }
+
+    [JsonPropertyName("measurements_per_s")]
+    public double MeasurementsPerSecond { get; init; }
+
+    [JsonPropertyName("noop_measurements_per_s")]
+    public double NoopMeasurementsPerSecond { get; init; }
+
+    [JsonPropertyName("ratio_to_noop")]
+    public double RatioToNoop { get; init; }
+
+    /// <summary>Server-side time from receiving a batch to publishing each robot's pose (ms).</summary>
+    [JsonPropertyName("p50_latency_ms")]
+    public double P50LatencyMs { get; init; }
+
+    [JsonPropertyName("p99_latency_ms")]
+    public double P99LatencyMs { get; init; }
+
+    /// <summary>Client-observed batch round trip (send → acknowledgement), ms.</summary>
+    [JsonPropertyName("ack_p50_ms")]
+    public double AckP50Ms { get; init; }
+
+    [JsonPropertyName("ack_p99_ms")]
+    public double AckP99Ms { get; init; }
+
+    [JsonPropertyName("rejected_fraction")]
+    public double RejectedFraction { get; init; }
+
+    /// <summary>Managed heap growth per robot once every robot is loaded (grain, filter, caches; an upper bound).</summary>
+    [JsonPropertyName("heap_bytes_per_robot")]
+    public double HeapBytesPerRobot { get; init; }
+
+    /// <summary>Managed bytes of one robot's filter state alone (RobotFilter + its pose buffer), measured directly.</summary>
+    [JsonPropertyName("filter_bytes_per_robot")]
+    public double FilterBytesPerRobot { get; init; }
+
+    /// <summary>Process CPU time per measurement in the timed phase (client and server together; robust to other load).</summary>
+    [JsonPropertyName("cpu_us_per_measurement")]
+    public double CpuMicrosecondsPerMeasurement { get; init; }
+
+    [JsonPropertyName("noop_cpu_us_per_measurement")]
+    public double NoopCpuMicrosecondsPerMeasurement { get; init; }
+
+    [JsonPropertyName("streams")]
+    public int Streams { get; init; }
+
+    [JsonPropertyName("cores")]
+    public int Cores { get; init; } = Environment.ProcessorCount;
+}
+
+/// <summary>
+/// `fleet bench ingest`: a real server and a real gRPC client on loopback in one process. Simulated robots are
+/// registered, warmed up, then their samples are streamed as fast as the server acknowledges them. The same data is
+/// then sent to a second server whose ingest acknowledges without filtering (the transport's own cost), and the
+/// ratio of the two throughputs is reported. Ingest-to-publish latency is read from the server's own histogram.
+/// </summary>
+public static class IngestBenchmark
+{
+    public const string SiteId = "bench-site";
+
+    public static async Task<IngestBenchmarkResult> RunAsync(IngestBenchmarkOptions options, Action<string>? log = null, CancellationToken cancellationToken = default)
+    {
+        log ??= _ => { };
+        log($"simulating {options.SimulatedTrajectories} trajectories for {options.WarmupSeconds + options.DurationSeconds:0.#} s");
+        var sim = new SimulationOptions
+        {
+            Seed = options.Seed,
+            Layout = options.Layout,
+            RobotCount = options.SimulatedTrajectories,
+            DurationSeconds = options.WarmupSeconds + options.DurationSeconds,
+        };
+        var generator = new MeasurementGenerator(sim);
+        var records = generator.Generate().ToList();
+        var robots = Enumerable.Range(0, options.Robots).Select(k => Replica(generator.Robots[k % generator.Robots.Count], k)).ToList();
+        var (warmup, timed) = BuildBatches(records, generator.Robots.Count, options);
+        var timedSamples = timed.Sum(stream => stream.Sum(b => b.Robots.Sum(r => r.Tdoa.Count + r.Odometry.Count)));
+        log($"{timedSamples} samples in {timed.Sum(s => s.Count)} batches over {options.Streams} streams");
+
+        var filterBytes = MeasureFilterBytes(generator.Layout.Anchors, robots[0]);
+
+        // Real server.
+        var latencies = new ConcurrentQueue<double>();
+        using var listener = ListenToLatency(latencies);
+        IngestBenchmarkResult real;
+        await using (var server = await StartAsync(noop: false, cancellationToken))
+        {
+            using var channel = GrpcChannel.ForAddress(FleetServerHost.GetGrpcAddress(server));
+            await SiteSetup.ApplyAsync(new SiteService.SiteServiceClient(channel), SiteId, generator.Layout.Anchors, robots, "benchmark", cancellationToken);
+            var heapBefore = HeapBytes();
+            await SendAsync(channel, warmup, options, cancellationToken);
+            var heapAfter = HeapBytes();
+            latencies.Clear();
+            log("timed phase: filtering server");
+            var run = await SendAsync(channel, timed, options, cancellationToken);
+            var latencyMs = latencies.Select(s => s * 1000).Order().ToArray();
+            real = new IngestBenchmarkResult
+            {
+                Robots = options.Robots,
+                Streams = options.Streams,
+                Measurements = run.Samples,
+                MeasurementsPerSecond = run.Samples / run.Seconds,
+                P50LatencyMs = Percentile(latencyMs, 0.50),
+                P99LatencyMs = Percentile(latencyMs, 0.99),
+                AckP50Ms = Percentile(run.AckMs, 0.50),
+                AckP99Ms = Percentile(run.AckMs, 0.99),
+                RejectedFraction = run.Samples > 0 ? (double)run.Rejected / run.Samples : 0,
+                HeapBytesPerRobot = (heapAfter - heapBefore) / (double)options.Robots,
+                FilterBytesPerRobot = filterBytes,
+                CpuMicrosecondsPerMeasurement = run.CpuMicrosecondsPerSample,
+            };
+            await server.StopAsync(cancellationToken);
+        }
+
+        // No-op baseline over the same transport and client.
+        log("timed phase: no-op server");
+        await using (var noop = await StartAsync(noop: true, cancellationToken))
+        {
+            using var channel = GrpcChannel.ForAddress(FleetServerHost.GetGrpcAddress(noop));
+            await SendAsync(channel, warmup, options, cancellationToken);
+            var run = await SendAsync(channel, timed, options, cancellationToken);
+            var noopRate = run.Samples / run.Seconds;
+            await noop.StopAsync(cancellationToken);
+            return real with
+            {
+                NoopMeasurementsPerSecond = noopRate,
+                RatioToNoop = real.MeasurementsPerSecond / noopRate,
+                NoopCpuMicrosecondsPerMeasurement = run.CpuMicrosecondsPerSample,
+            };
+        }
+    }
+
+    private static RobotRecord Replica(RobotRecord source, int k) => source with { Robot = BenchRobotId(k) };
+
+    private static string BenchRobotId(int k) => "bench-" + k.ToString("0000", System.Globalization.CultureInfo.InvariantCulture);
+
+    /// <summary>
+    /// Slices the records into batches of <see cref="IngestBenchmarkOptions.BatchSeconds"/> × RobotsPerBatch robots.
+    /// Each robot always travels on the same stream, so its samples stay in order.
+    /// </summary>
+    private static (List<MeasurementBatch>[] Warmup, List<MeasurementBatch>[] Timed) BuildBatches(
+        List<ObservationRecord> records, int trajectories, IngestBenchmarkOptions options)
+    {
+        var byTrajectory = new Dictionary<string, int>(StringComparer.Ordinal);
+        var perTrajectory = new List<ObservationRecord>[trajectories];
+        for (var i = 0; i < trajectories; i++)
+        {
+            perTrajectory[i] = [];
+        }
+
+        foreach (var record in records)
+        {
+            if (record is RobotRecord robot)
+            {
+                byTrajectory[robot.Robot] = byTrajectory.Count;
+            }
+            else if (record is TdoaRecord or OdometryRecord)
+            {
+                perTrajectory[byTrajectory[record.Robot]].Add(record);
+            }
+        }
+
+        var groups = (options.Robots + options.RobotsPerBatch - 1) / options.RobotsPerBatch;
+        var warmup = NewStreams(options.Streams);
+        var timed = NewStreams(options.Streams);
+        var slices = (int)Math.Ceiling((options.WarmupSeconds + options.DurationSeconds) / options.BatchSeconds);
+        var cursor = new int[trajectories];
+        var start = records.OfType<TdoaRecord>().Select(r => r.Time).DefaultIfEmpty(0).Min();
+        ulong batchId = 0;
+        for (var slice = 0; slice < slices; slice++)
+        {
+            var end = start + ((slice + 1) * options.BatchSeconds);
+            var sliceRecords = new List<ObservationRecord>[trajectories];
+            for (var t = 0; t < trajectories; t++)
+            {
+                sliceRecords[t] = [];
+                while (cursor[t] < perTrajectory[t].Count && Time(perTrajectory[t][cursor[t]]) < end)
+                {
+                    sliceRecords[t].Add(perTrajectory[t][cursor[t]++]);
+                }
+            }
+
+            var target = slice * options.BatchSeconds < options.WarmupSeconds ? warmup : timed;
+            for (var g = 0; g < groups; g++)
+            {
+                var batch = new MeasurementBatch { SiteId = SiteId, BatchId = batchId++ };
+                for (var k = g * options.RobotsPerBatch; k < Math.Min(options.Robots, (g + 1) * options.RobotsPerBatch); k++)
+                {
+                    var samples = new RobotSamples { RobotId = BenchRobotId(k) };
+                    foreach (var record in sliceRecords[k % trajectories])
+                    {
+                        if (record is TdoaRecord tdoa)
+                        {
+                            samples.Tdoa.Add(new TdoaSample
+                            {
+                                SampleTime = MeasurementBatcher.ToTimestamp(tdoa.Time),
+                                AnchorA = tdoa.AnchorA,
+                                AnchorB = tdoa.AnchorB,
+                                DistanceDifference = tdoa.DistanceDifference,
+                            });
+                        }
+                        else if (record is OdometryRecord odometry)
+                        {
+                            samples.Odometry.Add(new OdometrySample
+                            {
+                                SampleTime = MeasurementBatcher.ToTimestamp(odometry.Time),
+                                ForwardSpeed = odometry.ForwardSpeed,
+                                YawRate = odometry.YawRate,
+                            });
+                        }
+                    }
+
+                    batch.Robots.Add(samples);
+                }
+
+                target[g % options.Streams].Add(batch);
+            }
+        }
+
+        return (warmup, timed);
+    }
+
+    private static double Time(ObservationRecord record) => record switch
+    {
+        TdoaRecord t => t.Time,
+        OdometryRecord o => o.Time,
+        _ => 0,
+    };
+
+    private static List<MeasurementBatch>[] NewStreams(int count) => Enumerable.Range(0, count).Select(_ => new List<MeasurementBatch>()).ToArray();
+
+    private sealed record RunFigures(long Samples, long Rejected, double Seconds, double[] AckMs, double CpuMicroseconds)
+    {
+        public double CpuMicrosecondsPerSample => Samples > 0 ? CpuMicroseconds / Samples : double.NaN;
+    }
+
+    private static async Task<RunFigures> SendAsync(GrpcChannel channel, List<MeasurementBatch>[] streams, IngestBenchmarkOptions options, CancellationToken cancellationToken)
+    {
+        var client = new IngestService.IngestServiceClient(channel);
+        var acks = new ConcurrentQueue<double>();
+        long samples = 0, rejected = 0;
+        var cpuBefore = Process.GetCurrentProcess().TotalProcessorTime;
+        var started = Stopwatch.GetTimestamp();
+        await Task.WhenAll(streams.Select(async batches =>
+        {
+            using var call = client.StreamMeasurements(cancellationToken: cancellationToken);
+            using var window = new SemaphoreSlim(options.MaxInFlightPerStream);
+            var sentAt = new ConcurrentDictionary<ulong, long>();
+            var reader = Task.Run(async () =>
+            {
+                while (await call.ResponseStream.MoveNext(cancellationToken))
+                {
+                    var ack = call.ResponseStream.Current.Ack;
+                    if (sentAt.TryRemove(ack.BatchId, out var t0))
+                    {
+                        acks.Enqueue(Stopwatch.GetElapsedTime(t0).TotalMilliseconds);
+                    }
+
+                    Interlocked.Add(ref samples, ack.Accepted + ack.DownWeighted + ack.Buffered + ack.Rejected);
+                    Interlocked.Add(ref rejected, ack.Rejected);
+                    window.Release();
+                }
+            }, cancellationToken);
+            foreach (var batch in batches)
+            {
+                await window.WaitAsync(cancellationToken);
+                sentAt[batch.BatchId] = Stopwatch.GetTimestamp();
+                await call.RequestStream.WriteAsync(new StreamMeasurementsRequest { Batch = batch }, cancellationToken);
+            }
+
+            await call.RequestStream.CompleteAsync();
+            await reader;
+        }));
+        var seconds = Stopwatch.GetElapsedTime(started).TotalSeconds;
+        var cpu = (Process.GetCurrentProcess().TotalProcessorTime - cpuBefore).TotalMicroseconds;
+        return new RunFigures(samples, rejected, seconds, acks.Order().ToArray(), cpu);
+    }
+
+    private static async Task<WebApplication> StartAsync(bool noop, CancellationToken cancellationToken)
+    {
+        var dataDirectory = Path.Combine(Path.GetTempPath(), "fleet-bench", Guid.NewGuid().ToString("N"));
+        var settings = new Dictionary<string, string?>
+        {
+            ["Fleet:Server:DataDirectory"] = dataDirectory,
+            ["Fleet:Server:ListenAddress"] = "127.0.0.1",
+            ["Fleet:Server:GrpcPort"] = "0",
+            ["Fleet:Server:MetricsPort"] = "-1",
+            ["Fleet:Server:SiloPort"] = "0",
+            ["Fleet:Server:GatewayPort"] = "0",
+            ["Fleet:Server:NoopIngest"] = noop ? "true" : "false",
+            ["Logging:LogLevel:Default"] = "Warning",
+        };
+        return await FleetServerHost.StartAsync([], builder => builder.Configuration.AddInMemoryCollection(settings), cancellationToken: cancellationToken);
+    }
+
+    private static MeterListener ListenToLatency(ConcurrentQueue<double> into)
+    {
+        var listener = new MeterListener
+        {
+            InstrumentPublished = (instrument, l) =>
+            {
+                if (instrument.Meter.Name == FleetInstrumentNames.MeterName && instrument.Name == FleetInstrumentNames.IngestLatency)
+                {
+                    l.EnableMeasurementEvents(instrument);
+                }
+            },
+        };
+        listener.SetMeasurementEventCallback<double>((_, value, _, _) => into.Enqueue(value));
+        listener.Start();
+        return listener;
+    }
+
+    private static double MeasureFilterBytes(Estimation.Anchors.AnchorMap map, RobotRecord robot)
+    {
+        const int count = 1000;
+        var options = new FilterOptions { Motion = robot.Motion, TagLeverArm = robot.TagOffset };
+        var keep = new object[count];
+        var before = HeapBytes();
+        for (var i = 0; i < count; i++)
+        {
+            keep[i] = (new RobotFilter(map, options), new PoseEstimate());
+        }
+
+        var after = HeapBytes();
+        GC.KeepAlive(keep);
+        return (after - before) / (double)count;
+    }
+
+    private static long HeapBytes()
+    {
+        GC.Collect();
+        GC.WaitForPendingFinalizers();
+        GC.Collect();
+        return GC.GetTotalMemory(forceFullCollection: true);
+    }
+
+    private static double Percentile(double[] sorted, double p) =>
+        sorted.Length == 0 ? double.NaN : sorted[Math.Clamp((int)Math.Ceiling(p * sorted.Length) - 1, 0, sorted.Length - 1)];
+}
