@@ -103,6 +103,16 @@ public partial class HtmlOutputTests
     }
 
     [Fact]
+    public void BinnedMean_EmptyBins_BreakTheLineOnce()
+    {
+        var points = TrackingSections.BinnedMean([0.0, 3.5], [1.0, 2.0], 1.0);
+
+        Assert.Equal(3, points.Count);
+        Assert.True(double.IsNaN(points[1].Y));
+        Assert.Equal((3.5, 2.0), points[2]);
+    }
+
+    [Fact]
     public void BinnedMean_TwoBins_AveragesEach()
     {
         var points = TrackingSections.BinnedMean([0.0, 0.4, 1.0, 1.5], [1.0, 3.0, 10.0, 20.0], 1.0);

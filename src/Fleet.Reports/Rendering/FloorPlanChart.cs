@@ -177,9 +177,14 @@ public static class FloorPlanChart
 
         if (layer is CategoricalLayer cat)
         {
-            foreach (var k in cat.Legend.Where(k => k.Colour is not null))
+            // Only the categories that occur, so the legend lists what the map shows.
+            var present = new HashSet<int>(cat.Categories.Cast<int>());
+            for (var k = 0; k < cat.Legend.Count; k++)
             {
-                entries.Add(new LegendEntry(k.Label, "#444", LegendSwatch.Box, Fill: k.Colour));
+                if (cat.Legend[k].Colour is not null && present.Contains(k))
+                {
+                    entries.Add(new LegendEntry(cat.Legend[k].Label, "#444", LegendSwatch.Box, Fill: cat.Legend[k].Colour));
+                }
             }
         }
     }

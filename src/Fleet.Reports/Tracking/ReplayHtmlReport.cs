@@ -73,7 +73,7 @@ public static class ReplayHtmlReport
         doc.Section("Measurement rejection and filter consistency");
         doc.BeginFigures()
             .Figure(TrackingSections.RejectionBars(runs), "Rejected: the innovation gate refused the TDOA. Down-weighted: the robust update gave it weight below one.")
-            .Figure(TrackingSections.NeesBars(runs), "Normalised estimation error squared of the tag position against truth. Well below 95 % means the reported covariance is too small (over-confident); well above means it is too large.")
+            .Figure(TrackingSections.NeesBars(runs), "Normalised estimation error squared (NEES) of the tag position against truth. A consistent filter has about 95 % of samples in the band; fewer means the reported covariance does not match the actual error (NEES above the band: over-confident; below: too cautious).")
             .EndFigures();
         return doc.ToHtml();
     }

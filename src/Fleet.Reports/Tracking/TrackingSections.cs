@@ -14,7 +14,8 @@ public static class TrackingSections
 
     /// <summary>
     /// Mean of <paramref name="values"/> in consecutive time bins of <paramref name="binSeconds"/> starting at the
-    /// first time, as (bin centre time s, mean); empty bins are skipped (the line then bridges them).
+    /// first time, as (bin centre time s, mean). A run of empty bins (robot not tracked) becomes one NaN point, which
+    /// breaks the drawn line instead of bridging the gap.
     /// </summary>
     public static IReadOnlyList<(double X, double Y)> BinnedMean(IReadOnlyList<double> times, IReadOnlyList<double> values, double binSeconds)
     {
@@ -59,6 +60,10 @@ public static class TrackingSections
             if (count[k] > 0)
             {
                 points.Add((t0 + ((k + 0.5) * binSeconds), sum[k] / count[k]));
+            }
+            else if (points.Count > 0 && !double.IsNaN(points[^1].Y))
+            {
+                points.Add((t0 + ((k + 0.5) * binSeconds), double.NaN));
             }
         }
 
@@ -221,7 +226,7 @@ public static class TrackingSections
     public static HtmlTable DeltaTable(TrackingRun a, TrackingRun b)
     {
         var table = new HtmlTable("figure", $"{a.Label}: {a.Description}", $"{b.Label}: {b.Description}", "B − A", "change (%)");
-        void Metric(string name, Func<ErrorAccumulator, double> get, bool percent = false)
+        void Metric(string name, Func<ErrorAccumulator, double> get, bool percent = false, int digits = 3)
         {
             var va = get(a.Result.Overall);
             var vb = get(b.Result.Overall);
@@ -229,9 +234,9 @@ public static class TrackingSections
             var unitText = percent ? " pp" : string.Empty;
             table.Add(
                 name,
-                percent ? Format.Percent(va) : Format.Number(va),
-                percent ? Format.Percent(vb) : Format.Number(vb),
-                Format.Signed((vb - va) * scale, percent ? 1 : 3) + unitText,
+                percent ? Format.Percent(va) : Format.Number(va, digits),
+                percent ? Format.Percent(vb) : Format.Number(vb, digits),
+                Format.Signed((vb - va) * scale, percent ? 1 : digits) + unitText,
                 va != 0 && double.IsFinite(va) && double.IsFinite(vb) ? Format.Signed(100 * (vb - va) / Math.Abs(va), 1) + " %" : "–");
         }
 
@@ -245,7 +250,7 @@ public static class TrackingSections
         Metric("TDOAs down-weighted (%)", e => e.DownWeightRate, percent: true);
         Metric("NEES in 95 % band (%)", e => e.NeesInBandFraction, percent: true);
         Metric("truth samples tracked (%)", e => e.TrackedFraction, percent: true);
-        Metric("re-initialisations (count)", e => e.Reinitialisations);
+        Metric("re-initialisations (count)", e => e.Reinitialisations, digits: 0);
         return table;
     }
 }
