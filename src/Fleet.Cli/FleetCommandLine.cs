@@ -17,6 +17,7 @@ internal static class FleetCommandLine
         root.Subcommands.Add(ReplayCommand.Create());
         root.Subcommands.Add(BiasCommand.Create());
         root.Subcommands.Add(BenchCommand.Create());
+        root.Subcommands.Add(SiteCommand.Create());
         return root;
     }
 

@@ -82,6 +82,9 @@ public sealed class FilterBenchmarkScenario
         HorizontalAccelerationDensity = AccelerationNoise,
         VerticalAccelerationDensity = AccelerationNoise,
         MaxIrlsIterations = MaxIterations,
+
+        // The reference has a fixed measurement variance; compare like with like.
+        AdaptiveNoise = false,
     };
 
     /// <summary>A Fleet filter already locked on the tag at t = 0, so the benchmark times steady-state updates.</summary>

@@ -56,7 +56,7 @@ public sealed record SimulationOptions
     /// Through-rack attenuation: a link whose segment runs L metres inside racks is heard with probability
     /// exp(−L / this), so deeply blocked anchors mostly drop out of the candidate set. Infinity: no attenuation.
     /// </summary>
-    public double RackAttenuationLengthMetres { get; init; } = 1.0;
+    public double RackAttenuationLengthMetres { get; init; } = 1.5;
 
     public TdoaPairScheme PairScheme { get; init; } = TdoaPairScheme.RandomPair;
 
@@ -70,11 +70,11 @@ public sealed record SimulationOptions
     public bool NlosEnabled { get; init; } = true;
 
     /// <summary>NLOS excess = Exp(mean = base) + perMetre · (length inside racks) · LogNormal(0, logSigma), metres.</summary>
-    public double NlosBaseExcessMetres { get; init; } = 0.3;
+    public double NlosBaseExcessMetres { get; init; } = 0.05;
 
-    public double NlosExcessPerMetreInside { get; init; } = 0.5;
+    public double NlosExcessPerMetreInside { get; init; } = 0.15;
 
-    public double NlosLogSigma { get; init; } = 0.8;
+    public double NlosLogSigma { get; init; } = 0.5;
 
     /// <summary>Per-link probability of a multipath outlier: positive excess of min + Exp(mean) metres.</summary>
     public double MultipathOutlierProbability { get; init; } = 0.01;

@@ -14,12 +14,14 @@ internal static class ReplayCommand
         var json = new Option<bool>("--json") { Description = "Print one JSON object instead of the table" };
         var biasModel = new Option<FileInfo>("--bias-model") { Description = "Correct every TDOA with this bias model before the update" };
         var filter = new FilterChoice();
+        var report = new ReplayReportOptions();
 
         var command = new Command("replay", "Replay a measurement log through one robust filter per robot and score it against truth.")
         {
             site, log, json, biasModel,
         };
         filter.AddTo(command);
+        report.AddTo(command);
         command.SetAction(parse => FleetCommandLine.Guarded(() =>
         {
             var layout = SiteFile.Read(parse.GetValue(site)!.FullName);
@@ -32,6 +34,7 @@ internal static class ReplayCommand
             }
 
             var result = ReplayRunner.ReplayFile(layout, parse.GetValue(log)!.FullName, settings);
+            report.WriteIfRequested(parse, layout, parse.GetValue(log)!.FullName, result, filter, modelPath);
             var update = parse.GetValue(filter.Update)!;
             if (parse.GetValue(json))
             {

@@ -46,6 +46,9 @@ public sealed class ErrorAccumulator
     internal void AddUntracked() => UntrackedTruthSamples++;
     public List<double> HorizontalErrors { get; } = [];
 
+    /// <summary>Time (s) of each entry of <see cref="HorizontalErrors"/> (the truth record's time), same order.</summary>
+    public List<double> ErrorTimes { get; } = [];
+
     public double RmseHorizontal => Samples == 0 ? double.NaN : Math.Sqrt(SumSquaredHorizontal / Samples);
     public double RmseVertical => Samples == 0 ? double.NaN : Math.Sqrt(SumSquaredVertical / Samples);
     public double Rmse3D => Samples == 0 ? double.NaN : Math.Sqrt((SumSquaredHorizontal + SumSquaredVertical) / Samples);
@@ -65,9 +68,10 @@ public sealed class ErrorAccumulator
         }
     }
 
-    internal void AddError(Vector3D error, double? nees, bool neesInBand)
+    internal void AddError(double time, Vector3D error, double? nees, bool neesInBand)
     {
         Samples++;
+        ErrorTimes.Add(time);
         var h2 = (error.X * error.X) + (error.Y * error.Y);
         SumSquaredHorizontal += h2;
         SumSquaredVertical += error.Z * error.Z;
@@ -223,8 +227,8 @@ public sealed class TrackingEvaluation
         var error = track.Pose.TagPosition - truth.TagPosition;
         var nees = TagNees(track, error);
         var inBand = nees is { } n && n >= _neesLow && n <= _neesHigh;
-        track.Errors.AddError(error, nees, inBand);
-        _overall.AddError(error, nees, inBand);
+        track.Errors.AddError(truth.Time, error, nees, inBand);
+        _overall.AddError(truth.Time, error, nees, inBand);
     }
 
     /// <summary>

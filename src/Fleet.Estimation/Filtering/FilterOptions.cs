@@ -28,6 +28,18 @@ public sealed class FilterOptions
     /// <summary>Probability of the χ²(1) gate, in (0, 1). Default 0.999 (threshold ≈ 10.83).</summary>
     public double GateProbability { get; init; } = 0.999;
 
+    /// <summary>
+    /// Robust kernels only: scale the TDOA variance by k² ≥ 1 where k tracks the running median of the standardised
+    /// innovations, so dense NLOS widens the gate and the weights instead of locking the data out. Default true.
+    /// </summary>
+    public bool AdaptiveNoise { get; init; } = true;
+
+    /// <summary>Log-step of the adaptive noise scale per measurement (time constant ≈ 1/rate measurements). Default 0.05.</summary>
+    public double NoiseScaleRate { get; init; } = 0.05;
+
+    /// <summary>Upper bound of the adaptive noise scale k. Default 10.</summary>
+    public double MaxNoiseScale { get; init; } = 10.0;
+
     /// <summary>Maximum reweighting/relinearisation iterations of one robust update (≥ 1). Default 5.</summary>
     public int MaxIrlsIterations { get; init; } = 5;
 
@@ -95,6 +107,24 @@ public sealed class FilterOptions
     /// <summary>Odometry speeds above this (m/s) are rejected as impossible. Default 10.</summary>
     public double MaxPlausibleSpeed { get; init; } = 10.0;
 
+    /// <summary>
+    /// Constant-velocity model: largest plausible horizontal tag speed (m/s). A faster estimate is projected back onto
+    /// this bound (the data cannot support it; left alone it lets a weakly observed track run away). Default 4.
+    /// </summary>
+    public double MaxPlausibleTagSpeed { get; init; } = 4.0;
+
+    /// <summary>
+    /// A tag estimate farther than this (m) outside the bounding box of the anchors is divergence: TDOA
+    /// hyperbolas flatten outside the constellation, so such a track cannot recover by itself. Default 10.
+    /// </summary>
+    public double SiteBoundsMarginMetres { get; init; } = 10.0;
+
+    /// <summary>
+    /// Planar heading alignment starts only when the horizontal 1-σ is below this (m): a heading taken from a
+    /// displacement that still contains the convergence of a fresh fix is wrong. Default 0.25.
+    /// </summary>
+    public double AlignmentMaxSigmaMetres { get; init; } = 0.25;
+
     /// <summary>Odometry yaw rates above this (rad/s) are rejected as impossible. Default 10.</summary>
     public double MaxPlausibleYawRate { get; init; } = 10.0;
 
@@ -107,10 +137,10 @@ public sealed class FilterOptions
     /// <summary>A seeded yaw with sigma above this (rad) is treated as unknown (planar). Default 0.35.</summary>
     public double MaxAlignedYawSigma { get; init; } = 0.35;
 
-    /// <summary>TDOAs collected before a first fix is attempted (≥ 3). Default 10.</summary>
+    /// <summary>TDOAs collected before a first fix is attempted (≥ 3). Default 24 (about 0.3 s at 75 Hz: enough to outvote NLOS).</summary>
     public int InitBurstCount { get; init; } = 10;
 
-    /// <summary>Capacity of the initialisation buffer (≥ <see cref="InitBurstCount"/>). Default 24.</summary>
+    /// <summary>Capacity of the initialisation buffer (≥ <see cref="InitBurstCount"/>). Default 48.</summary>
     public int InitBurstCapacity { get; init; } = 24;
 
     /// <summary>Only TDOAs within this window (s) of the newest one are used for a fix. Default 0.5.</summary>
@@ -118,6 +148,15 @@ public sealed class FilterOptions
 
     /// <summary>A fix is accepted only if the robust residual scale is at most this (m). Default 0.5.</summary>
     public double InitMaxResidualScaleMetres { get; init; } = 0.5;
+
+    /// <summary>
+    /// A fix is accepted only if at least this fraction of the burst fits it within 3 robust sigmas, so a solution
+    /// that explains only an NLOS-contaminated subset is refused. Default 0.6.
+    /// </summary>
+    public double InitMinInlierFraction { get; init; } = 0.6;
+
+    /// <summary>A fix is accepted only if its horizontal 1-σ is at most this (m). Default 1.</summary>
+    public double InitMaxHorizontalSigmaMetres { get; init; } = 1.0;
 
     /// <summary>Horizontal 1-σ (m) above which the track is reported <see cref="TrackingState.Uncertain"/>. Default 0.5.</summary>
     public double UncertainHorizontalSigmaMetres { get; init; } = 0.5;
@@ -130,6 +169,12 @@ public sealed class FilterOptions
 
     /// <summary>This many consecutive gate/zero-weight rejections declare divergence (re-acquire). Default 30.</summary>
     public int MaxConsecutiveRejections { get; init; } = 30;
+
+    /// <summary>Consecutive gate/zero-weight rejections tolerated before each further one inflates the covariance (≥ 0). Default 3.</summary>
+    public int RejectionRunBeforeInflation { get; init; } = 3;
+
+    /// <summary>Factor (≥ 1) by which the position (and planar yaw) variances grow on each rejection beyond <see cref="RejectionRunBeforeInflation"/>. Default 1.2.</summary>
+    public double RejectionInflationFactor { get; init; } = 1.2;
 
     /// <summary>Horizontal 1-σ (m) beyond which the covariance is considered blown up (re-acquire). Default 25.</summary>
     public double DivergenceHorizontalSigmaMetres { get; init; } = 25.0;
@@ -158,6 +203,16 @@ public sealed class FilterOptions
         }
 
         Range(MaxIrlsIterations, 1, 50, nameof(MaxIrlsIterations));
+        if (!(NoiseScaleRate > 0 && NoiseScaleRate <= 1))
+        {
+            throw new ArgumentOutOfRangeException(nameof(NoiseScaleRate), NoiseScaleRate, "must be in (0, 1]");
+        }
+
+        if (!(MaxNoiseScale >= 1 && double.IsFinite(MaxNoiseScale)))
+        {
+            throw new ArgumentOutOfRangeException(nameof(MaxNoiseScale), MaxNoiseScale, "must be finite and ≥ 1");
+        }
+
         NonNegative(ReorderLagSeconds, nameof(ReorderLagSeconds));
         Range(ReorderCapacity, 2, 64, nameof(ReorderCapacity));
         Positive(MaxPredictionGapSeconds, nameof(MaxPredictionGapSeconds));
@@ -187,6 +242,9 @@ public sealed class FilterOptions
         Positive(UnknownYawRateNoiseDensity, nameof(UnknownYawRateNoiseDensity));
         Positive(MaxPlausibleSpeed, nameof(MaxPlausibleSpeed));
         Positive(MaxPlausibleYawRate, nameof(MaxPlausibleYawRate));
+        Positive(MaxPlausibleTagSpeed, nameof(MaxPlausibleTagSpeed));
+        Positive(SiteBoundsMarginMetres, nameof(SiteBoundsMarginMetres));
+        Positive(AlignmentMaxSigmaMetres, nameof(AlignmentMaxSigmaMetres));
         Positive(YawAlignmentDistanceMetres, nameof(YawAlignmentDistanceMetres));
         Positive(MaxAlignedYawSigma, nameof(MaxAlignedYawSigma));
         Range(InitBurstCount, 3, 1000, nameof(InitBurstCount));
@@ -197,6 +255,12 @@ public sealed class FilterOptions
 
         Positive(InitBurstWindowSeconds, nameof(InitBurstWindowSeconds));
         Positive(InitMaxResidualScaleMetres, nameof(InitMaxResidualScaleMetres));
+        if (!(InitMinInlierFraction >= 0 && InitMinInlierFraction <= 1))
+        {
+            throw new ArgumentOutOfRangeException(nameof(InitMinInlierFraction), InitMinInlierFraction, "must be in [0, 1]");
+        }
+
+        Positive(InitMaxHorizontalSigmaMetres, nameof(InitMaxHorizontalSigmaMetres));
         Positive(UncertainHorizontalSigmaMetres, nameof(UncertainHorizontalSigmaMetres));
         if (!(UncertainRejectionRatio > 0 && UncertainRejectionRatio <= 1))
         {
@@ -205,6 +269,12 @@ public sealed class FilterOptions
 
         Range(RejectionWindow, 1, 64, nameof(RejectionWindow));
         Range(MaxConsecutiveRejections, 1, 1_000_000, nameof(MaxConsecutiveRejections));
+        Range(RejectionRunBeforeInflation, 0, 1_000_000, nameof(RejectionRunBeforeInflation));
+        if (!(RejectionInflationFactor >= 1 && RejectionInflationFactor <= 10))
+        {
+            throw new ArgumentOutOfRangeException(nameof(RejectionInflationFactor), RejectionInflationFactor, "must be in [1, 10]");
+        }
+
         Positive(DivergenceHorizontalSigmaMetres, nameof(DivergenceHorizontalSigmaMetres));
         if (DivergenceHorizontalSigmaMetres <= UncertainHorizontalSigmaMetres)
         {

@@ -1,3 +1,4 @@
+using System.Runtime.CompilerServices;
 namespace Fleet.Estimation.Filtering;
 
 /// <summary>
@@ -107,56 +108,38 @@ internal static class KalmanMath
 
     /// <summary>
     /// Joseph-form covariance update P ← (I − k·h)·P·(I − k·h)ᵀ + r·k·kᵀ for any gain k (optimal or not),
-    /// after Bucy &amp; Joseph (1968) (from memory). Keeps P symmetric positive semi-definite under round-off; the
-    /// result is symmetrised.
+    /// after Bucy &amp; Joseph (1968) (from memory). Keeps P symmetric positive semi-definite under round-off.
+    /// Computed in O(n²) by <see cref="JosephUpdateScalar"/>.
     /// </summary>
     public static void JosephUpdate(Span<double> p, ReadOnlySpan<double> h, ReadOnlySpan<double> k, double r, int n)
     {
-        Span<double> a = stackalloc double[MaxDimension * MaxDimension];
-        Span<double> hp = stackalloc double[MaxDimension];
+        Span<double> ph = stackalloc double[MaxDimension];
+        var hph = ProjectCovariance(p, h, ph, n);
+        JosephUpdateScalar(p, ph, hph, k, r, n);
+    }
 
-        // A = (I − k h) P = P − k (h P)
-        for (var j = 0; j < n; j++)
-        {
-            var s = 0.0;
-            for (var i = 0; i < n; i++)
-            {
-                s += h[i] * p[(i * n) + j];
-            }
-
-            hp[j] = s;
-        }
-
+    /// <summary>
+    /// The Joseph form for a scalar measurement, expanded: with ph = P·hᵀ and hph = h·P·hᵀ of the prior P,
+    /// (I − k·h)·P·(I − k·h)ᵀ + r·k·kᵀ = P − k·phᵀ − ph·kᵀ + (hph + r)·k·kᵀ (P symmetric). Each entry is formed
+    /// once for i ≤ j and mirrored, so the result is exactly symmetric; O(n²) instead of the dense O(n³).
+    /// Valid for any gain k.
+    /// </summary>
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
+    public static void JosephUpdateScalar(Span<double> p, ReadOnlySpan<double> ph, double hph, ReadOnlySpan<double> k, double r, int n)
+    {
+        var sk = hph + r;
         for (var i = 0; i < n; i++)
         {
-            for (var j = 0; j < n; j++)
+            var ki = k[i];
+            var phi = ph[i];
+            var row = i * n;
+            for (var j = i; j < n; j++)
             {
-                a[(i * n) + j] = p[(i * n) + j] - (k[i] * hp[j]);
+                var v = p[row + j] - (ki * ph[j]) - (phi * k[j]) + (sk * ki * k[j]);
+                p[row + j] = v;
+                p[(j * n) + i] = v;
             }
         }
-
-        // A (I − k h)ᵀ = A − (A hᵀ) kᵀ, then + r k kᵀ
-        Span<double> ah = stackalloc double[MaxDimension];
-        for (var i = 0; i < n; i++)
-        {
-            var s = 0.0;
-            for (var j = 0; j < n; j++)
-            {
-                s += a[(i * n) + j] * h[j];
-            }
-
-            ah[i] = s;
-        }
-
-        for (var i = 0; i < n; i++)
-        {
-            for (var j = 0; j < n; j++)
-            {
-                p[(i * n) + j] = a[(i * n) + j] - (ah[i] * k[j]) + (r * k[i] * k[j]);
-            }
-        }
-
-        Symmetrize(p, n);
     }
 
     /// <summary>P ← (P + Pᵀ)/2, exactly symmetric afterwards.</summary>
@@ -171,6 +154,21 @@ internal static class KalmanMath
                 p[(j * n) + i] = m;
             }
         }
+    }
+
+    /// <summary>True when every diagonal entry is positive and finite (a cheap per-update check; see <see cref="IsUsableCovariance"/>).</summary>
+    public static bool HasUsableDiagonal(ReadOnlySpan<double> p, int n)
+    {
+        for (var i = 0; i < n; i++)
+        {
+            var d = p[(i * n) + i];
+            if (!(d > 0) || !double.IsFinite(d))
+            {
+                return false;
+            }
+        }
+
+        return true;
     }
 
     /// <summary>True when every entry is finite and every diagonal entry is positive.</summary>

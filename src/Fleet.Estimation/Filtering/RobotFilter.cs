@@ -1,4 +1,5 @@
 using System.Numerics;
+using System.Runtime.CompilerServices;
 using Fleet.Estimation.Anchors;
 using Fleet.Estimation.Bias;
 using Fleet.Estimation.Geometry;
@@ -30,12 +31,19 @@ public sealed class RobotFilter
     private const string ReasonBlowUp = "covariance blow-up";
     private const string ReasonRejections = "long run of rejected measurements";
     private const string ReasonTimeJump = "time discontinuity";
+    private const string ReasonOutside = "estimate left the site";
     private const string ReasonUncertain = "large uncertainty or many rejections";
     private const string ReasonRecovered = "uncertainty and rejections back to normal";
 
-    private const int HeaderLength = 12;
+    private const int HeaderLength = 14;
     private const double MinimumWindowForRatio = 8;
     private const double HeadingFromVelocityMinSpeed = 0.2;
+
+    /// <summary>Every 32nd health evaluation scans all of P (the others check its diagonal only).</summary>
+    private const int FullHealthCheckMask = 31;
+
+    /// <summary>Median of χ²(1), i.e. 0.6745²: the NIS of a normal innovation is below it half the time.</summary>
+    private const double MedianNisOfNormal = 0.454936;
 
     /// <summary>Pose covariance index of each constant-velocity state (x, y, z, vx, vy, vz → 0, 1, 2, 4, 5, 6).</summary>
     private static readonly int[] ConstantVelocityToPose = [0, 1, 2, 4, 5, 6];
@@ -47,6 +55,9 @@ public sealed class RobotFilter
     private readonly double _measurementVariance;
     private readonly double _kernelConstant;
     private readonly double _gateThreshold;
+    private readonly bool _adaptiveNoise;
+    private readonly double _noiseStepUp;
+    private readonly double _noiseStepDown;
     private readonly RobustKernel _kernel;
     private readonly Vector3D _lever;
 
@@ -62,6 +73,10 @@ public sealed class RobotFilter
     private readonly TdoaMeasurement[] _burst;
 
     private AnchorMap _map;
+
+    // Bounding box of the anchors grown by the site margin; an estimate outside it has diverged.
+    private Vector3D _boundsLow;
+    private Vector3D _boundsHigh;
     private ITdoaBiasModel? _bias;
     private double _time = double.NaN;
 
@@ -89,8 +104,15 @@ public sealed class RobotFilter
     private int _jumpCount;
     private double _jumpTime;
     private int _consecutiveRejections;
+
+    // Run of consecutive model rejections as seen by the update itself (part of the rollback snapshot).
+    private int _gatedRun;
+
+    // Adaptive TDOA noise scale k ≥ 1 (R = k²·σ²), tracking the running median of the standardised innovations.
+    private double _noiseScale = 1.0;
     private ulong _rejectionBits;
     private int _windowFill;
+    private int _healthCount;
 
     /// <summary>Creates a filter in <see cref="TrackingState.Acquiring"/>. Throws <see cref="ArgumentException"/> for invalid options.</summary>
     public RobotFilter(AnchorMap map, FilterOptions options, ITdoaBiasModel? biasModel = null)
@@ -108,6 +130,9 @@ public sealed class RobotFilter
         _kernel = options.Kernel;
         _kernelConstant = options.EffectiveKernelConstant;
         _gateThreshold = options.GateThreshold;
+        _adaptiveNoise = options.AdaptiveNoise && _kernel != RobustKernel.LeastSquares;
+        _noiseStepUp = Math.Exp(options.NoiseScaleRate);
+        _noiseStepDown = Math.Exp(-options.NoiseScaleRate);
         _lever = _planar ? options.TagLeverArm : Vector3D.Zero;
         _x = new double[_n];
         _p = new double[_n * _n];
@@ -116,6 +141,7 @@ public sealed class RobotFilter
         _snapshots = new double[_capacity * _stride];
         _events = new RingEvent[_capacity];
         _burst = new TdoaMeasurement[options.InitBurstCapacity];
+        SetBounds(map);
     }
 
     /// <summary>Raised on every tracking-state change with (from, to, reason); e.g. divergence gives (Locked, Lost) then (Lost, Acquiring).</summary>
@@ -152,6 +178,8 @@ public sealed class RobotFilter
     private ulong WindowMask => _options.RejectionWindow >= 64 ? ulong.MaxValue : (1UL << _options.RejectionWindow) - 1;
 
     /// <summary>Submits one TDOA. Never throws for bad data: every problem is a <see cref="RejectionReason"/>.</summary>
+    /// <remarks>The per-event methods are compiled fully optimised at first use (no tiered warm-up): a server's first measurements must be fast too.</remarks>
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     public UpdateResult Submit(in TdoaMeasurement m)
     {
         var result = SubmitCore(m);
@@ -180,6 +208,7 @@ public sealed class RobotFilter
     {
         ArgumentNullException.ThrowIfNull(map);
         _map = map;
+        SetBounds(map);
         _ringCount = 0;
         _burstCount = 0;
         _burstAttempted = false;
@@ -307,6 +336,7 @@ public sealed class RobotFilter
         FillPose(x[.._n], p[..(_n * _n)], time, into);
     }
 
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private UpdateResult SubmitCore(in TdoaMeasurement m)
     {
         if (!double.IsFinite(m.Time) || !double.IsFinite(m.DistanceDifference))
@@ -465,6 +495,7 @@ public sealed class RobotFilter
         return t >= _time - _options.ReorderLagSeconds ? TimeClass.Late : TimeClass.TooLate;
     }
 
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private UpdateResult ApplyEvent(in RingEvent ev)
     {
         PredictTo(ev.Time);
@@ -502,6 +533,7 @@ public sealed class RobotFilter
     /// Iterated, reweighted EKF update for one TDOA. Per iteration i: r = z − h(xᵢ) − H(x̄ − xᵢ), S = H·P̄·Hᵀ + R,
     /// u = r/√S/c, w = w(u), gain with R/w. The prior NIS (iteration 0) is gated. Covariance in Joseph form.
     /// </summary>
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private UpdateResult RobustUpdate(int anchorA, int anchorB, double z)
     {
         var n = _n;
@@ -518,7 +550,12 @@ public sealed class RobotFilter
         var lever = _planar && _yawKnown ? _lever : Vector3D.Zero;
         var nis = double.NaN;
         var weight = 1.0;
-        var rEffective = _measurementVariance;
+        var baseVariance = _measurementVariance * _noiseScale * _noiseScale;
+        var rEffective = baseVariance;
+        var hph = 0.0;
+
+        // A step this small against the measurement sigma no longer changes the linearisation in any way that matters.
+        var stepTolerance = 1e-3 * _options.TdoaSigmaMetres;
         var maxIterations = _kernel == RobustKernel.LeastSquares ? 1 : _options.MaxIrlsIterations;
         for (var iteration = 0; iteration < maxIterations; iteration++)
         {
@@ -535,8 +572,8 @@ public sealed class RobotFilter
                 r -= h[j] * d;
             }
 
-            var hph = KalmanMath.ProjectCovariance(_p, h, ph, n);
-            var s = hph + _measurementVariance;
+            hph = ProjectCovariance(h, ph);
+            var s = hph + baseVariance;
             if (!(s > 0) || !double.IsFinite(s) || !double.IsFinite(r))
             {
                 return UpdateResult.Reject(RejectionReason.NonFinite);
@@ -546,8 +583,10 @@ public sealed class RobotFilter
             if (iteration == 0)
             {
                 nis = normalized * normalized;
+                AdaptNoiseScale(nis);
                 if (_options.GateEnabled && nis > _gateThreshold)
                 {
+                    InflateAfterRejection();
                     return new UpdateResult(UpdateOutcome.Rejected, RejectionReason.ChiSquareGate, 0, nis);
                 }
             }
@@ -555,15 +594,16 @@ public sealed class RobotFilter
             var newWeight = RobustKernels.Weight(_kernel, normalized / _kernelConstant);
             if (!(newWeight > 0))
             {
+                InflateAfterRejection();
                 return new UpdateResult(UpdateOutcome.Rejected, RejectionReason.ZeroWeight, 0, nis);
             }
 
-            rEffective = _measurementVariance / newWeight;
-            var sEffective = hph + rEffective;
+            rEffective = baseVariance / newWeight;
+            var inverseS = 1.0 / (hph + rEffective);
             var step = 0.0;
             for (var j = 0; j < n; j++)
             {
-                k[j] = ph[j] / sEffective;
+                k[j] = ph[j] * inverseS;
                 var next = xPrior[j] + (k[j] * r);
                 if (_planar && j == 3)
                 {
@@ -574,7 +614,7 @@ public sealed class RobotFilter
                 xi[j] = next;
             }
 
-            var settled = iteration > 0 && Math.Abs(newWeight - weight) < 1e-3 && step < 1e-6;
+            var settled = iteration > 0 && Math.Abs(newWeight - weight) < 1e-3 && step < stepTolerance;
             weight = newWeight;
             if (settled)
             {
@@ -582,10 +622,124 @@ public sealed class RobotFilter
             }
         }
 
+        _gatedRun = 0;
         xi.CopyTo(_x);
-        KalmanMath.JosephUpdate(_p, h, k, rEffective, n);
+        KalmanMath.JosephUpdateScalar(_p, ph, hph, k, rEffective, n);
+        if (!_planar)
+        {
+            LimitSpeed();
+        }
+
         var outcome = weight >= 0.99 ? UpdateOutcome.Accepted : UpdateOutcome.DownWeighted;
         return new UpdateResult(outcome, RejectionReason.None, weight, nis);
+    }
+
+    /// <summary>
+    /// ph ← P·hᵀ and returns h·P·hᵀ. The constant-velocity Jacobian is zero on the velocities, so only the first
+    /// three columns of P contribute (half the work); the planar Jacobian is dense.
+    /// </summary>
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
+    private double ProjectCovariance(ReadOnlySpan<double> h, Span<double> ph)
+    {
+        var n = _n;
+        var p = _p;
+        var hph = 0.0;
+        if (!_planar)
+        {
+            double h0 = h[0], h1 = h[1], h2 = h[2];
+            for (var i = 0; i < n; i++)
+            {
+                var row = i * n;
+                var v = (p[row] * h0) + (p[row + 1] * h1) + (p[row + 2] * h2);
+                ph[i] = v;
+            }
+
+            return (h0 * ph[0]) + (h1 * ph[1]) + (h2 * ph[2]);
+        }
+
+        for (var i = 0; i < n; i++)
+        {
+            var row = i * n;
+            var v = 0.0;
+            for (var j = 0; j < n; j++)
+            {
+                v += p[row + j] * h[j];
+            }
+
+            ph[i] = v;
+            hph += h[i] * v;
+        }
+
+        return hph;
+    }
+
+    /// <summary>
+    /// Robust adaptive measurement noise: k moves up by a fixed log-step when the prior standardised innovation
+    /// exceeds the normal median 0.6745 and down otherwise, so it settles where half the innovations are below
+    /// 0.6745·√S (a stochastic-approximation estimate of the median, hence of a robust scale; common practice).
+    /// Dense NLOS widens the innovations, k grows, and the gate and weights follow the real spread instead of
+    /// rejecting good and bad alike; in clean conditions k stays at its floor 1 and nothing changes.
+    /// </summary>
+    private void AdaptNoiseScale(double nis)
+    {
+        if (!_adaptiveNoise)
+        {
+            return;
+        }
+
+        var up = nis > MedianNisOfNormal;
+        _noiseScale = Math.Clamp(_noiseScale * (up ? _noiseStepUp : _noiseStepDown), 1.0, _options.MaxNoiseScale);
+    }
+
+    /// <summary>
+    /// A run of rejections is either a burst of outliers or a state that has drifted away from the data while its
+    /// covariance stayed small; the gate would then lock the data out for good. Past a short run, each further
+    /// rejection scales P up, so a drifted track re-opens its gate and converges again instead of diverging.
+    /// Scaling P keeps it symmetric positive definite.
+    /// </summary>
+    private void InflateAfterRejection()
+    {
+        _gatedRun++;
+        if (_gatedRun <= _options.RejectionRunBeforeInflation)
+        {
+            return;
+        }
+
+        // P ← D·P·D with D = √factor on the position (and planar yaw) entries, 1 elsewhere: the position block
+        // grows by the factor, its cross terms by √factor, and P stays symmetric positive definite. Velocities
+        // and the floor-tied planar height are left alone so the inflation cannot make the track wander.
+        var root = Math.Sqrt(_options.RejectionInflationFactor);
+        var n = _n;
+        Span<double> d = stackalloc double[6];
+        d = d[..n];
+        d.Fill(1.0);
+        d[0] = root;
+        d[1] = root;
+        d[_planar ? 3 : 2] = root;
+        for (var i = 0; i < n; i++)
+        {
+            for (var j = 0; j < n; j++)
+            {
+                _p[(i * n) + j] *= d[i] * d[j];
+            }
+        }
+    }
+
+    /// <summary>
+    /// Constant velocity: projects a horizontal velocity above <see cref="FilterOptions.MaxPlausibleTagSpeed"/> onto
+    /// the bound (estimate projection for an inequality constraint; common practice). Left alone, a weakly observed
+    /// track can build up speed and run out of the constellation where the hyperbolas no longer hold it.
+    /// </summary>
+    private void LimitSpeed()
+    {
+        var v2 = (_x[3] * _x[3]) + (_x[4] * _x[4]);
+        var max = _options.MaxPlausibleTagSpeed;
+        if (v2 > max * max)
+        {
+            var f = max / Math.Sqrt(v2);
+            _x[3] *= f;
+            _x[4] *= f;
+        }
     }
 
     private void PredictTo(double t)
@@ -606,11 +760,7 @@ public sealed class RobotFilter
     {
         if (!_planar)
         {
-            Span<double> f = stackalloc double[36];
-            Span<double> q = stackalloc double[36];
-            ConstantVelocityModel.Transition(dt, f);
-            ConstantVelocityModel.ProcessNoise(dt, _options.HorizontalAccelerationDensity, _options.VerticalAccelerationDensity, q);
-            KalmanMath.Predict(x, p, f, q, 6);
+            ConstantVelocityModel.PredictInPlace(x, p, dt, _options.HorizontalAccelerationDensity, _options.VerticalAccelerationDensity);
             return;
         }
 
@@ -687,9 +837,22 @@ public sealed class RobotFilter
     /// </summary>
     private void TryAlignHeading()
     {
-        if (!_alignActive)
+        var varianceNow = 0.5 * (_p[0] + _p[5]);
+        var maxVariance = _options.AlignmentMaxSigmaMetres * _options.AlignmentMaxSigmaMetres;
+
+        // Start (or restart) only from a settled position: a displacement that still contains the convergence of a
+        // fresh fix, or a drift under many rejections, gives a confidently wrong heading.
+        if (!_alignActive || _alignStartVariance > maxVariance || _gatedRun > 0)
         {
-            StartAlignment();
+            if (varianceNow <= maxVariance && _gatedRun == 0)
+            {
+                StartAlignment();
+            }
+            else
+            {
+                _alignActive = false;
+            }
+
             return;
         }
 
@@ -705,7 +868,6 @@ public sealed class RobotFilter
         var dsx = _x[0] - _alignStartX;
         var dsy = _x[1] - _alignStartY;
         var dSite = Math.Sqrt((dsx * dsx) + (dsy * dsy));
-        var varianceNow = 0.5 * (_p[0] + _p[5]);
         var positionSigma = Math.Sqrt(_alignStartVariance + varianceNow);
         if (Math.Abs(dSite - dLocal) > (0.3 * dLocal) + (3 * positionSigma) || dSite < 1e-6)
         {
@@ -846,7 +1008,9 @@ public sealed class RobotFilter
             }
         }
 
-        if (!result.Converged || !(result.RobustScale <= _options.InitMaxResidualScaleMetres) || !result.Position.IsFinite)
+        if (!result.Converged || !(result.RobustScale <= _options.InitMaxResidualScaleMetres) || !result.Position.IsFinite
+            || !(HorizontalSigma(result.Covariance, 3) <= _options.InitMaxHorizontalSigmaMetres)
+            || InlierFraction(burst, result) < _options.InitMinInlierFraction)
         {
             return;
         }
@@ -909,6 +1073,50 @@ public sealed class RobotFilter
         EvaluateHealth();
     }
 
+    private void SetBounds(AnchorMap map)
+    {
+        var low = new Vector3D(double.PositiveInfinity, double.PositiveInfinity, double.PositiveInfinity);
+        var high = new Vector3D(double.NegativeInfinity, double.NegativeInfinity, double.NegativeInfinity);
+        for (var i = 0; i < map.Count; i++)
+        {
+            var a = map[i].Position;
+            low = new Vector3D(Math.Min(low.X, a.X), Math.Min(low.Y, a.Y), Math.Min(low.Z, a.Z));
+            high = new Vector3D(Math.Max(high.X, a.X), Math.Max(high.Y, a.Y), Math.Max(high.Z, a.Z));
+        }
+
+        var margin = _options.SiteBoundsMarginMetres;
+        _boundsLow = new Vector3D(low.X - margin, low.Y - margin, low.Z - margin);
+        _boundsHigh = new Vector3D(high.X + margin, high.Y + margin, high.Z + margin);
+    }
+
+    private bool InsideBounds() =>
+        _x[0] >= _boundsLow.X && _x[0] <= _boundsHigh.X
+        && _x[1] >= _boundsLow.Y && _x[1] <= _boundsHigh.Y
+        && _x[2] >= _boundsLow.Z && _x[2] <= _boundsHigh.Z;
+
+    /// <summary>
+    /// Fraction of the burst within 3 robust sigmas of the fix. A fix that fits a small subset tightly (MAD can be
+    /// small when half the burst agrees by chance) is a wrong local solution or an NLOS-dominated one.
+    /// </summary>
+    private double InlierFraction(ReadOnlySpan<TdoaMeasurement> burst, MultilaterationResult fix)
+    {
+        var bound = 3 * Math.Max(fix.RobustScale, _options.TdoaSigmaMetres);
+        var inliers = 0;
+        foreach (var m in burst)
+        {
+            var a = _map[m.AnchorA];
+            var b = _map[m.AnchorB];
+            var r = m.DistanceDifference - TdoaMeasurementModel.Predict(fix.Position, a.Position, a.AntennaDelayMetres, b.Position, b.AntennaDelayMetres);
+            if (Math.Abs(r) <= bound)
+            {
+                inliers++;
+            }
+        }
+
+        return burst.Length == 0 ? 0 : (double)inliers / burst.Length;
+    }
+
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private void EvaluateHealth()
     {
         if (_state == TrackingState.Acquiring)
@@ -925,9 +1133,17 @@ public sealed class RobotFilter
             }
         }
 
-        if (!KalmanMath.IsUsableCovariance(_p, _n))
+        // The diagonal check is cheap and catches what matters every update; the full scan runs now and then.
+        _healthCount++;
+        if (!KalmanMath.HasUsableDiagonal(_p, _n) || ((_healthCount & FullHealthCheckMask) == 0 && !KalmanMath.IsUsableCovariance(_p, _n)))
         {
             LoseTrack(ReasonNonFinite);
+            return;
+        }
+
+        if (_map.Count > 0 && !InsideBounds())
+        {
+            LoseTrack(ReasonOutside);
             return;
         }
 
@@ -988,6 +1204,8 @@ public sealed class RobotFilter
         _yawKnown = false;
         _alignActive = false;
         _consecutiveRejections = 0;
+        _gatedRun = 0;
+        _noiseScale = 1.0;
         _rejectionBits = 0;
         _windowFill = 0;
     }
@@ -1126,6 +1344,7 @@ public sealed class RobotFilter
     private int Physical(int logical) => (_ringStart + logical) % _capacity;
 
     /// <summary>Saves the current state before an event at logical position <paramref name="logical"/> (0…count); a full ring drops its oldest entry.</summary>
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     private void RecordAt(int logical, in RingEvent ev)
     {
         int slot;
@@ -1154,6 +1373,8 @@ public sealed class RobotFilter
         s[9] = _alignStartX;
         s[10] = _alignStartY;
         s[11] = _alignStartVariance;
+        s[12] = _gatedRun;
+        s[13] = _noiseScale;
         var o = HeaderLength;
         for (var i = 0; i < _n; i++)
         {
@@ -1184,6 +1405,8 @@ public sealed class RobotFilter
         _alignStartX = s[9];
         _alignStartY = s[10];
         _alignStartVariance = s[11];
+        _gatedRun = (int)s[12];
+        _noiseScale = s[13];
         var o = HeaderLength;
         for (var i = 0; i < _n; i++)
         {

@@ -28,6 +28,7 @@ public static class TdoaMeasurementModel
         ((tag - anchorB).Length + delayB) - ((tag - anchorA).Length + delayA);
 
     /// <summary>Predicted ddiff (m) and its gradient with respect to the tag position (unitless, site frame).</summary>
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     public static double PredictWithGradient(in Vector3D tag, in Vector3D anchorA, double delayA, in Vector3D anchorB, double delayB, out Vector3D gradient)
     {
         var da = tag - anchorA;
@@ -62,6 +63,7 @@ public static class TdoaMeasurementModel
     /// and the state of motion model <paramref name="kind"/>; writes ∂h/∂state into <paramref name="jacobian"/>
     /// (length ≥ state dimension). Planar: ∂h/∂yaw = ∇h · ∂(Rz(yaw)·leverArm)/∂yaw. Constant velocity: zeros for the velocities.
     /// </summary>
+    [MethodImpl(MethodImplOptions.AggressiveOptimization)]
     public static double Evaluate(
         MotionModelKind kind,
         ReadOnlySpan<double> state,

@@ -238,6 +238,45 @@ public class KalmanMathTests
     }
 
     [Fact]
+    public void ConstantVelocityPredictInPlace_RandomInputs_MatchesDenseMatrixComputation()
+    {
+        // Reference: x ← F·x, P ← F·P·Fᵀ + Q with MathNet dense matrices, F and Q from the model's own builders
+        // (white-acceleration Q, Bar-Shalom et al. 2001 §6.2; from memory).
+        var rng = new Random(13);
+        const int n = ConstantVelocityModel.StateDimension;
+        for (var trial = 0; trial < 100; trial++)
+        {
+            var a = Matrix<double>.Build.Dense(n, n, (_, _) => rng.NextDouble() - 0.5);
+            var p0 = (a * a.Transpose()) + (0.01 * Matrix<double>.Build.DenseIdentity(n));
+            var x0 = Vector<double>.Build.Dense(n, _ => (rng.NextDouble() - 0.5) * 10);
+            var dt = rng.NextDouble() * 0.5;
+            var qh = rng.NextDouble() * 2;
+            var qv = rng.NextDouble() * 0.2;
+            var fArray = new double[n * n];
+            var qArray = new double[n * n];
+            ConstantVelocityModel.Transition(dt, fArray);
+            ConstantVelocityModel.ProcessNoise(dt, qh, qv, qArray);
+            var f = Matrix<double>.Build.DenseOfRowMajor(n, n, fArray);
+            var expectedP = (f * p0 * f.Transpose()) + Matrix<double>.Build.DenseOfRowMajor(n, n, qArray);
+            var expectedX = f * x0;
+
+            var x = x0.ToArray();
+            var p = ToRowMajor(p0);
+            ConstantVelocityModel.PredictInPlace(x, p, dt, qh, qv);
+            for (var i = 0; i < n; i++)
+            {
+                Assert.Equal(expectedX[i], x[i], 12);
+            }
+
+            for (var i = 0; i < n * n; i++)
+            {
+                Assert.Equal(expectedP[i / n, i % n], p[i], 12);
+                Assert.Equal(p[((i % n) * n) + (i / n)], p[i], 15);
+            }
+        }
+    }
+
+    [Fact]
     public void Predict_RandomInputs_MatchesDenseMatrixComputation()
     {
         var rng = new Random(12);

@@ -292,9 +292,11 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
     }
 
     [Fact]
-    public void Submit_LongRunOfInconsistentData_DeclaresDivergence()
+    public void Submit_LongRunOfInconsistentData_RecoversAtTheNewPosition()
     {
-        // The robot is teleported (e.g. a wrong map version): every TDOA fails the gate until the filter gives up.
+        // The robot is teleported (e.g. a wrong map version): every TDOA fails the gate at first. Each rejection past
+        // a short run inflates P until the gate re-opens, so the filter either converges on the new position
+        // directly or, failing that, declares divergence and re-acquires there; either way it ends locked on it.
         var (filter, _) = TrackedFilter(MotionModelKind.ConstantVelocity3D, 5);
         var lost = 0;
         filter.StateChanged += (_, to, _) => lost += to == TrackingState.Lost ? 1 : 0;
@@ -309,7 +311,7 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
             filter.Submit(new TdoaMeasurement(t + (k * 0.025), a, b, Ddiff(map, far, a, b)));
         }
 
-        Assert.Equal(1, lost);
+        Assert.True(lost <= 1, $"lost {lost} times");
         Assert.Equal(TrackingState.Locked, filter.State);
         var pose = new PoseEstimate();
         filter.GetPose(pose);
