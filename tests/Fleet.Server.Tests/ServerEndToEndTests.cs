@@ -21,12 +21,15 @@ public sealed class ServerEndToEndTests(SharedServer shared) : IClassFixture<Sha
     private ServerHarness Server => shared.Server;
 
     [Fact]
-    public async Task Check_Overall_ReturnsServing()
+    public async Task Check_OverallLivenessReadiness_ReturnServing()
     {
         // Standard gRPC health checking protocol (grpc.health.v1).
         var health = new Health.HealthClient(Server.Channel);
-        var response = await health.CheckAsync(new HealthCheckRequest(), deadline: Deadline());
-        Assert.Equal(HealthCheckResponse.Types.ServingStatus.Serving, response.Status);
+        foreach (var service in new[] { string.Empty, "liveness", "readiness" })
+        {
+            var response = await health.CheckAsync(new HealthCheckRequest { Service = service }, deadline: Deadline());
+            Assert.Equal(HealthCheckResponse.Types.ServingStatus.Serving, response.Status);
+        }
     }
 
     [Fact]

@@ -72,7 +72,16 @@ public static class FleetServiceCollectionExtensions
             grpc.EnableDetailedErrors = false;
         });
         services.AddGrpcReflection();
-        services.AddGrpcHealthChecks().AddCheck<RegistryHealthCheck>("registry");
+        // "" (overall) uses every check; "liveness" only says the process answers (keep it local, so a registry
+        // hiccup never gets the pod restarted); "readiness" also needs the site registry.
+        services.AddGrpcHealthChecks(health =>
+            {
+                health.Services.Map(string.Empty, _ => true);
+                health.Services.Map("liveness", r => r.Tags.Contains("live"));
+                health.Services.Map("readiness", r => r.Tags.Contains("ready"));
+            })
+            .AddCheck("process", () => HealthCheckResult.Healthy(), ["live"])
+            .AddCheck<RegistryHealthCheck>("registry", tags: ["ready"]);
         return services;
     }
 
