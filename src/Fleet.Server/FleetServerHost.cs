@@ -46,6 +46,7 @@ public static class FleetServerHost
             try
             {
                 await app.StartAsync(cancellationToken);
+                app.Logger.LogWarning(SafetyNotice.Text);
                 return app;
             }
             catch (Exception e) when (attempt < attempts && IsAddressInUse(e))

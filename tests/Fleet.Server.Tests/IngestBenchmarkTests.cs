@@ -23,7 +23,8 @@ public sealed class IngestBenchmarkTests
         Assert.Equal(6, result.Robots);
         Assert.True(result.Measurements > 0);
         Assert.True(result.MeasurementsPerSecond > 0 && result.NoopMeasurementsPerSecond > 0);
-        Assert.True(result.FilterBytesPerRobot > 0);
+        // Bytes per robot come from GC counters, which a collection during the run can drive to zero or below: only shape here.
+        Assert.True(double.IsFinite(result.FilterBytesPerRobot));
         var json = JsonDocument.Parse(JsonSerializer.Serialize(result)).RootElement;
         foreach (var key in new[] { "measurements_per_s", "noop_measurements_per_s", "ratio_to_noop", "p50_latency_ms", "p99_latency_ms", "robots" })
         {

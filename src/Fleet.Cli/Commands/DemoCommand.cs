@@ -49,8 +49,6 @@ internal static class DemoCommand
 
     private static async Task<int> RunAsync(int robotCount, double duration, double speed, string layoutName, int seed, bool useBias, string? dataDirectory, CancellationToken cancellationToken)
     {
-        Console.WriteLine(SafetyNotice.Text);
-        Console.WriteLine();
         if (robotCount < 1 || duration <= 0 || speed <= 0)
         {
             Console.Error.WriteLine("fleet: --robots, --duration and --speed must be positive");

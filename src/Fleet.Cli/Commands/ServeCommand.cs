@@ -18,7 +18,6 @@ internal static class ServeCommand
         };
         command.SetAction(async (parse, cancellationToken) =>
         {
-            Console.WriteLine(SafetyNotice.Text);
             return await FleetServerHost.RunAsync([.. parse.UnmatchedTokens], cancellationToken: cancellationToken);
         });
         return command;

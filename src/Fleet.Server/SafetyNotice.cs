@@ -1,7 +1,7 @@
-namespace Fleet.Cli;
+namespace Fleet.Server;
 
-/// <summary>The caution printed at start-up by every command that produces poses.</summary>
-internal static class SafetyNotice
+/// <summary>The caution every start of the server logs, and the README repeats.</summary>
+public static class SafetyNotice
 {
     public const string Text =
         "CAUTION: Fleet is not a safety system. Its poses support traffic coordination only; people protection relies on "
