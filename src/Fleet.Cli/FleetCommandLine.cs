@@ -13,6 +13,8 @@ internal static class FleetCommandLine
     {
         var root = new RootCommand("Fleet: central UWB TDOA localization for fleets of warehouse robots.");
         root.Subcommands.Add(DemoCommand.Create());
+        root.Subcommands.Add(ServeCommand.Create());
+        root.Subcommands.Add(WatchCommand.Create());
         root.Subcommands.Add(SimulateCommand.Create());
         root.Subcommands.Add(ReplayCommand.Create());
         root.Subcommands.Add(BiasCommand.Create());

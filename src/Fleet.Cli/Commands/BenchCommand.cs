@@ -12,7 +12,24 @@ internal static class BenchCommand
     {
         var bench = new Command("bench", "Measure Fleet against reference implementations in the same run and print ratios.");
         bench.Subcommands.Add(CreateFilter());
+        bench.Subcommands.Add(CreateIngest());
         return bench;
+    }
+
+    private static Command CreateIngest()
+    {
+        var json = new Option<bool>("--json") { Description = "Print one JSON object" };
+        var robots = new Option<int>("--robots") { Description = "Simulated robots", DefaultValueFactory = _ => new Fleet.Server.Benchmarking.IngestBenchmarkOptions().Robots };
+        var duration = new Option<double>("--duration") { Description = "Seconds of saturated ingest per server", DefaultValueFactory = _ => new Fleet.Server.Benchmarking.IngestBenchmarkOptions().DurationSeconds };
+        var command = new Command("ingest", "A real server and a real gRPC client on loopback against a no-op ingest endpoint over the same transport, in one run.") { json, robots, duration };
+        command.SetAction(async (parse, cancellationToken) =>
+        {
+            var options = new Fleet.Server.Benchmarking.IngestBenchmarkOptions { Robots = parse.GetValue(robots), DurationSeconds = parse.GetValue(duration) };
+            var result = await Fleet.Server.Benchmarking.IngestBenchmark.RunAsync(options, line => Console.Error.WriteLine(line), cancellationToken);
+            Console.WriteLine(CliJson.Serialize(result));
+            return 0;
+        });
+        return command;
     }
 
     private static Command CreateFilter()
