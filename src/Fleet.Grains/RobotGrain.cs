@@ -44,6 +44,15 @@ public sealed partial class RobotGrain(
     private int[] _anchorNisCount = [];
     private bool _seenSinceHeartbeat;
 
+    // Outcome counts and per-anchor tallies are pushed to the instruments and the anchor-health tracker at most once
+    // per TelemetryInterval, not once per batch: both take locks shared by every robot of the site.
+    private static readonly long TelemetryIntervalTicks = Stopwatch.Frequency;
+    private readonly int[] _pendingRejectedByReason = new int[RobotBatchResult.ReasonCount];
+    private int _pendingAccepted;
+    private int _pendingDownWeighted;
+    private int _pendingBuffered;
+    private long _lastTelemetryFlush;
+
     public override async Task OnActivateAsync(CancellationToken cancellationToken)
     {
         (_siteId, _robotId) = GrainKeys.ParseRobot(this.GetPrimaryKeyString());
@@ -62,6 +71,7 @@ public sealed partial class RobotGrain(
 
     public override Task OnDeactivateAsync(DeactivationReason reason, CancellationToken cancellationToken)
     {
+        FlushTelemetry();
         hub.Forget(_siteId, _robotId);
         instruments.RobotDeactivated(_siteId);
         if (_config.Exists && _seenSinceHeartbeat)
@@ -97,7 +107,21 @@ public sealed partial class RobotGrain(
             result = Run(batch, _filter, _map);
         }
 
-        instruments.RecordMeasurements(_siteId, _robotId, result.Accepted, result.DownWeighted, result.Buffered, result.RejectedByReason);
+        _pendingAccepted += result.Accepted;
+        _pendingDownWeighted += result.DownWeighted;
+        _pendingBuffered += result.Buffered;
+        for (var r = 0; r < _pendingRejectedByReason.Length; r++)
+        {
+            _pendingRejectedByReason[r] += result.RejectedByReason[r];
+        }
+
+        var now = Stopwatch.GetTimestamp();
+        if (_lastTelemetryFlush == 0 || now - _lastTelemetryFlush >= TelemetryIntervalTicks)
+        {
+            FlushTelemetry();
+            _lastTelemetryFlush = now;
+        }
+
         return Task.FromResult(result);
     }
 
@@ -227,12 +251,6 @@ public sealed partial class RobotGrain(
             }
         }
 
-        anchorHealth.Record(_siteId, _anchorIds, _anchorUsed, _anchorRejected, _anchorNisSum, _anchorNisCount);
-        Array.Clear(_anchorUsed);
-        Array.Clear(_anchorRejected);
-        Array.Clear(_anchorNisSum);
-        Array.Clear(_anchorNisCount);
-
         if (batch.Count > 0 && filter.State != TrackingState.Acquiring)
         {
             filter.GetPose(_pose);
@@ -251,6 +269,22 @@ public sealed partial class RobotGrain(
             Rejections = [.. _rejections],
             RejectionsTruncated = truncated,
         };
+    }
+
+    /// <summary>Pushes accumulated outcome counts and per-anchor tallies out; called at most once per interval, on heartbeats and at deactivation.</summary>
+    private void FlushTelemetry()
+    {
+        instruments.RecordMeasurements(_siteId, _robotId, _pendingAccepted, _pendingDownWeighted, _pendingBuffered, _pendingRejectedByReason);
+        _pendingAccepted = _pendingDownWeighted = _pendingBuffered = 0;
+        Array.Clear(_pendingRejectedByReason);
+        if (_anchorIds.Length > 0)
+        {
+            anchorHealth.Record(_siteId, _anchorIds, _anchorUsed, _anchorRejected, _anchorNisSum, _anchorNisCount);
+            Array.Clear(_anchorUsed);
+            Array.Clear(_anchorRejected);
+            Array.Clear(_anchorNisSum);
+            Array.Clear(_anchorNisCount);
+        }
     }
 
     private UpdateResult SubmitTdoa(RobotFilter filter, AnchorMap map, RobotBatch batch, int i)
@@ -322,6 +356,12 @@ public sealed partial class RobotGrain(
 
     private void UseMap(AnchorMap map)
     {
+        if (_anchorIds.Length > 0)
+        {
+            // Tallies belong to the old map's anchor indices: hand them over before the arrays are replaced.
+            anchorHealth.Record(_siteId, _anchorIds, _anchorUsed, _anchorRejected, _anchorNisSum, _anchorNisCount);
+        }
+
         _map = map;
         var ids = new string[map.Count];
         for (var k = 0; k < ids.Length; k++)
@@ -338,6 +378,7 @@ public sealed partial class RobotGrain(
 
     private async Task HeartbeatAsync(CancellationToken cancellationToken)
     {
+        FlushTelemetry();
         var config = await GrainFactory.GetGrain<ISiteGrain>(_siteId).AttachRobot(_robotId);
         if (config != _config)
         {

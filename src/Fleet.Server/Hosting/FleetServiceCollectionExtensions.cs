@@ -130,6 +130,12 @@ public static class FleetServiceCollectionExtensions
             silo.UseLocalhostClustering(options.SiloPort, options.GatewayPort, serviceId: "fleet", clusterId: "fleet-local");
             silo.Configure<GrainCollectionOptions>(collection =>
             {
+                // Idle grains are looked for once per quantum; a short idle timeout needs a short quantum.
+                if (idle < TimeSpan.FromMinutes(2))
+                {
+                    collection.CollectionQuantum = idle / 2;
+                }
+
                 collection.ClassSpecificCollectionAge[typeof(RobotGrain).FullName!] = idle;
                 // Site grains hold the list of loaded robots; robots re-attach on a heartbeat if one is unloaded anyway.
                 collection.ClassSpecificCollectionAge[typeof(SiteGrain).FullName!] = TimeSpan.FromDays(1);
