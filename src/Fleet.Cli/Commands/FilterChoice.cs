@@ -61,6 +61,9 @@ internal sealed class FilterChoice
             TdoaSigmaMetres = sigma,
             ReorderLagSeconds = reorderLag,
             TagLeverArm = lever,
+
+            // Logs describe ground robots: a TDOA-only tag still rides at its lever-arm height above the floor.
+            HoldTagHeight = true,
         };
     }
 

@@ -182,6 +182,13 @@ public sealed class FilterOptions
     /// <summary>Margin (m) over the anchor baseline beyond which a ddiff is impossible. Default 0.5.</summary>
     public double ImpossibleValueMarginMetres { get; init; } = 0.5;
 
+    /// <summary>
+    /// Constant-velocity model only: the tag rides a ground robot, so hold its height at
+    /// <see cref="FloorHeight"/> + <see cref="TagLeverArm"/>.Z with <see cref="HeightPriorSigma"/> (the planar model always
+    /// does). Turn off for tags that change height (lift masts, handhelds).
+    /// </summary>
+    public bool HoldTagHeight { get; init; }
+
     /// <summary>The kernel constant in use: <see cref="KernelConstant"/> or the standard one.</summary>
     public double EffectiveKernelConstant => KernelConstant ?? RobustKernels.StandardConstant(Kernel);
 

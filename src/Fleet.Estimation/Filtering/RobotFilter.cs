@@ -761,6 +761,14 @@ public sealed class RobotFilter
         if (!_planar)
         {
             ConstantVelocityModel.PredictInPlace(x, p, dt, _options.HorizontalAccelerationDensity, _options.VerticalAccelerationDensity);
+            if (_options.HoldTagHeight)
+            {
+                // A TDOA-only tag on a ground robot still rides at a known height; without this, weak vertical
+                // geometry and NLOS let z wander and drag x, y with it.
+                Span<double> hz6 = [0, 0, 1, 0, 0, 0];
+                KalmanMath.UpdateScalar(x, p, hz6, _options.FloorHeight + _options.TagLeverArm.Z - x[2], _options.HeightPriorSigma * _options.HeightPriorSigma, 6);
+            }
+
             return;
         }
 
