@@ -45,7 +45,7 @@ internal static class BiasCommand
             foreach (var (sitePath, logPath) in pairs)
             {
                 var layout = SiteFile.Read(sitePath);
-                var extraction = TrainingSampleExtractor.Extract(layout, ReadLog(logPath), group: layout.SiteId);
+                var extraction = TrainingSampleExtractor.Extract(layout, ReplayRunner.ReadLog(logPath), group: layout.SiteId);
                 var kept = parse.GetValue(keepBlocked) ? [.. extraction.Samples] : LineOfSightScreen.Keep(layout, extraction.Samples);
                 samples.AddRange(kept);
                 Console.Error.WriteLine(string.Create(CultureInfo.InvariantCulture,
@@ -106,7 +106,7 @@ internal static class BiasCommand
             var contents = LoadModel(modelPath);
             var layout = SiteFile.Read(parse.GetValue(site)!.FullName);
             var logPath = parse.GetValue(log)!.FullName;
-            var records = ReadLog(logPath).ToList();
+            var records = ReplayRunner.ReadLog(logPath).ToList();
 
             var samples = TrainingSampleExtractor.Extract(layout, records, group: layout.SiteId).Samples;
             var (perAnchor, overall) = BiasResidualStatistics.Compute(samples, contents.Model);
@@ -187,16 +187,6 @@ internal static class BiasCommand
         ["rmse_after_m"] = CliJson.Round(a.RmseAfter),
         ["robust_sigma_after_m"] = CliJson.Round(a.RobustSigmaAfter),
     };
-
-    private static IEnumerable<ObservationRecord> ReadLog(string path)
-    {
-        if (!File.Exists(path))
-        {
-            throw new CliException($"{path}: no such measurement log");
-        }
-
-        return MeasurementLog.Read(path, d => Console.Error.WriteLine(d.ToString()));
-    }
 
     private static List<(string Site, string Log)> Pairs(FileInfo[] sites, FileInfo[] logs)
     {

@@ -12,11 +12,7 @@ internal static class ReplayRunner
     /// <summary>Replays a log file, showing progress on a terminal and reporting bad lines on stderr (file:line: message).</summary>
     public static EvaluationResult ReplayFile(SiteLayout site, string logPath, EvaluationSettings settings, string label = "replay")
     {
-        if (!File.Exists(logPath))
-        {
-            throw new CliException($"{logPath}: no such measurement log");
-        }
-
+        RequireLog(logPath);
         var diagnostics = new DiagnosticPrinter();
         using var stream = new FileStream(logPath, FileMode.Open, FileAccess.Read, FileShare.Read, 1 << 16, FileOptions.SequentialScan);
         using var progress = new TerminalProgress(label);
@@ -31,6 +27,35 @@ internal static class ReplayRunner
         progress.Dispose();
         diagnostics.Summarise();
         return evaluation.Finish();
+    }
+
+    /// <summary>
+    /// Reads a log lazily, reporting bad lines on stderr the same way as <see cref="ReplayFile"/>. A missing file fails
+    /// at once, not on first enumeration.
+    /// </summary>
+    public static IEnumerable<ObservationRecord> ReadLog(string logPath)
+    {
+        RequireLog(logPath);
+        return ReadLogCore(logPath);
+    }
+
+    private static IEnumerable<ObservationRecord> ReadLogCore(string logPath)
+    {
+        var diagnostics = new DiagnosticPrinter();
+        foreach (var record in MeasurementLog.Read(logPath, diagnostics.Report))
+        {
+            yield return record;
+        }
+
+        diagnostics.Summarise();
+    }
+
+    private static void RequireLog(string logPath)
+    {
+        if (!File.Exists(logPath))
+        {
+            throw new CliException($"{logPath}: no such measurement log");
+        }
     }
 
     /// <summary>Replays records already in memory (the demo's simulated run).</summary>

@@ -94,12 +94,7 @@ internal static class SiteCommand
 
     private static SiteReportInput WithLog(SiteReportInput input, SiteLayout layout, string logPath, string? modelPath, string update)
     {
-        if (!File.Exists(logPath))
-        {
-            throw new CliException($"{logPath}: no such measurement log");
-        }
-
-        var records = MeasurementLog.Read(logPath, d => Console.Error.WriteLine(d.ToString())).ToList();
+        var records = ReplayRunner.ReadLog(logPath).ToList();
         input = input with { Log = LogSummary.From(records), LogSource = logPath };
         var samples = TrainingSampleExtractor.Extract(layout, records, group: layout.SiteId).Samples;
         if (samples.Count == 0)

@@ -69,18 +69,11 @@ internal static class WatchCommand
         _ => "?",
     };
 
-    /// <summary>Largest 1-σ of the x–y covariance block (m), from its larger eigenvalue; NaN when absent.</summary>
+    /// <summary>Largest horizontal 1-σ of a pose (m); NaN when the pose carries no covariance.</summary>
     public static double HorizontalSigma(Pose pose)
     {
         var c = pose.Covariance;
-        if (c.Count < 9)
-        {
-            return double.NaN;
-        }
-
         var n = (int)Math.Round(Math.Sqrt(c.Count));
-        double a = c[0], b = c[1], d = c[n + 1];
-        var half = 0.5 * (a + d);
-        return Math.Sqrt(Math.Max(0, half + Math.Sqrt((0.25 * (a - d) * (a - d)) + (b * b))));
+        return n < 2 || n * n != c.Count ? double.NaN : Estimation.Filtering.CovarianceMeasures.HorizontalSigma([.. c], n);
     }
 }

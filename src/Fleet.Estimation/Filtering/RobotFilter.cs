@@ -1017,7 +1017,7 @@ public sealed class RobotFilter
         }
 
         if (!result.Converged || !(result.RobustScale <= _options.InitMaxResidualScaleMetres) || !result.Position.IsFinite
-            || !(HorizontalSigma(result.Covariance, 3) <= _options.InitMaxHorizontalSigmaMetres)
+            || !(CovarianceMeasures.HorizontalSigma(result.Covariance, 3) <= _options.InitMaxHorizontalSigmaMetres)
             || InlierFraction(burst, result) < _options.InitMinInlierFraction)
         {
             return;
@@ -1155,7 +1155,7 @@ public sealed class RobotFilter
             return;
         }
 
-        var sigma = HorizontalSigma(_p, _n);
+        var sigma = CovarianceMeasures.HorizontalSigma(_p, _n);
         if (sigma > _options.DivergenceHorizontalSigmaMetres)
         {
             LoseTrack(ReasonBlowUp);
@@ -1179,17 +1179,6 @@ public sealed class RobotFilter
         {
             SetState(TrackingState.Locked, ReasonRecovered);
         }
-    }
-
-    /// <summary>Largest standard deviation of the horizontal covariance block (m), from its largest eigenvalue.</summary>
-    private static double HorizontalSigma(ReadOnlySpan<double> p, int n)
-    {
-        var a = p[0];
-        var b = p[1];
-        var d = p[n + 1];
-        var half = 0.5 * (a + d);
-        var disc = Math.Sqrt((0.25 * (a - d) * (a - d)) + (b * b));
-        return Math.Sqrt(Math.Max(0, half + disc));
     }
 
     private void LoseTrack(string reason)
