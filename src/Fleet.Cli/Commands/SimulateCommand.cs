@@ -24,12 +24,22 @@ internal static class SimulateCommand
         var noise = new Option<double>("--noise") { Description = "Gaussian ranging noise per link, 1-σ (m)", DefaultValueFactory = _ => new SimulationOptions().NoiseSigmaMetres };
         var noNlos = new Option<bool>("--no-nlos") { Description = "No NLOS excess delay and no multipath outliers" };
         var noBias = new Option<bool>("--no-bias") { Description = "No pose-dependent ranging bias" };
+        var multipath = new Option<double>("--multipath")
+        {
+            Description = "Probability that a link carries a multipath outlier (a late reflection, 0–1)",
+            DefaultValueFactory = _ => new SimulationOptions().MultipathOutlierProbability,
+        };
+        var multipathExcess = new Option<double>("--multipath-excess")
+        {
+            Description = "Mean extra path length of a multipath outlier beyond its minimum (m)",
+            DefaultValueFactory = _ => new SimulationOptions().MultipathMeanExcessMetres,
+        };
         var siteOut = new Option<FileInfo>("--site-out") { Description = "Site file to write (JSON)", DefaultValueFactory = _ => new FileInfo("site.json") };
         var logOut = new Option<FileInfo>("--log-out") { Description = "Measurement log to write (JSON Lines)", DefaultValueFactory = _ => new FileInfo("measurements.jsonl") };
 
         var command = new Command("simulate", "Write an invented warehouse site file and a simulated measurement log with truth lines.")
         {
-            layout, robots, duration, seed, noise, noNlos, noBias, siteOut, logOut,
+            layout, robots, duration, seed, noise, noNlos, noBias, multipath, multipathExcess, siteOut, logOut,
         };
         command.SetAction(parse => FleetCommandLine.Guarded(() =>
         {
@@ -41,7 +51,8 @@ internal static class SimulateCommand
                 Seed = parse.GetValue(seed),
                 NoiseSigmaMetres = parse.GetValue(noise),
                 NlosEnabled = !parse.GetValue(noNlos),
-                MultipathOutlierProbability = parse.GetValue(noNlos) ? 0 : new SimulationOptions().MultipathOutlierProbability,
+                MultipathOutlierProbability = parse.GetValue(noNlos) ? 0 : parse.GetValue(multipath),
+                MultipathMeanExcessMetres = parse.GetValue(multipathExcess),
                 BiasAmplitudeMetres = parse.GetValue(noBias) ? 0 : new SimulationOptions().BiasAmplitudeMetres,
             };
             try

@@ -137,11 +137,20 @@ public sealed class FilterOptions
     /// <summary>A seeded yaw with sigma above this (rad) is treated as unknown (planar). Default 0.35.</summary>
     public double MaxAlignedYawSigma { get; init; } = 0.35;
 
-    /// <summary>TDOAs collected before a first fix is attempted (≥ 3). Default 24 (about 0.3 s at 75 Hz: enough to outvote NLOS).</summary>
-    public int InitBurstCount { get; init; } = 10;
+    /// <summary>
+    /// TDOAs collected before a first fix is attempted (≥ 3). Default 24 (about 0.3 s at 75 Hz): a short burst lets a
+    /// few late reflections outvote the rest and lock the track metres off.
+    /// </summary>
+    public int InitBurstCount { get; init; } = 24;
+
+    /// <summary>
+    /// Slow tags: once the burst spans the whole <see cref="InitBurstWindowSeconds"/>, a fix is attempted with this many
+    /// TDOAs (3 … <see cref="InitBurstCount"/>) even if <see cref="InitBurstCount"/> is not reached. Default 10.
+    /// </summary>
+    public int InitBurstMinimumCount { get; init; } = 10;
 
     /// <summary>Capacity of the initialisation buffer (≥ <see cref="InitBurstCount"/>). Default 48.</summary>
-    public int InitBurstCapacity { get; init; } = 24;
+    public int InitBurstCapacity { get; init; } = 48;
 
     /// <summary>Only TDOAs within this window (s) of the newest one are used for a fix. Default 0.5.</summary>
     public double InitBurstWindowSeconds { get; init; } = 0.5;
@@ -255,6 +264,7 @@ public sealed class FilterOptions
         Positive(YawAlignmentDistanceMetres, nameof(YawAlignmentDistanceMetres));
         Positive(MaxAlignedYawSigma, nameof(MaxAlignedYawSigma));
         Range(InitBurstCount, 3, 1000, nameof(InitBurstCount));
+        Range(InitBurstMinimumCount, 3, InitBurstCount, nameof(InitBurstMinimumCount));
         if (InitBurstCapacity < InitBurstCount || InitBurstCapacity > 1000)
         {
             throw new ArgumentOutOfRangeException(nameof(InitBurstCapacity), InitBurstCapacity, $"must be between {nameof(InitBurstCount)} and 1000");

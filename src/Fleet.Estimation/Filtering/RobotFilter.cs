@@ -971,12 +971,24 @@ public sealed class RobotFilter
 
         _burstSinceAttempt++;
         var due = _burstAttempted ? Math.Max(1, _options.InitBurstCount / 2) : 1;
-        if (_burstCount >= _options.InitBurstCount && _burstSinceAttempt >= due)
+        if (_burstSinceAttempt >= due && (_burstCount >= _options.InitBurstCount || (_burstCount >= _options.InitBurstMinimumCount && BurstSpansWindow())))
         {
             TryInitialise();
         }
 
         return new UpdateResult(UpdateOutcome.Buffered, RejectionReason.None, 0, double.NaN);
+    }
+
+    /// <summary>Whether the buffered burst reaches back (nearly) the whole init window: a slow tag will not send more in time.</summary>
+    private bool BurstSpansWindow()
+    {
+        var oldest = double.PositiveInfinity;
+        for (var i = 0; i < _burstCount; i++)
+        {
+            oldest = Math.Min(oldest, _burst[i].Time);
+        }
+
+        return _time - oldest >= 0.8 * _options.InitBurstWindowSeconds;
     }
 
     /// <summary>First fix from the burst by robust multilateration. Allocates (rare).</summary>
