@@ -16,6 +16,13 @@ public sealed class FleetGrainOptions
     /// <summary>Motion model of robots the registry has no settings for.</summary>
     public MotionModelKind DefaultMotion { get; set; } = MotionModelKind.PlanarOdometry;
 
+    /// <summary>
+    /// Constant-velocity tags ride ground robots too, so their height is held at the tag offset's height above the
+    /// floor (weak vertical anchor spread cannot then drag the horizontal estimate). Planar robots always hold it.
+    /// Turn off for sites where tags change height (lift masts, handhelds).
+    /// </summary>
+    public bool HoldTagHeight { get; set; } = true;
+
     /// <summary>Robust kernel of every filter; null keeps the estimation core's default.</summary>
     public RobustKernel? Kernel { get; set; }
 

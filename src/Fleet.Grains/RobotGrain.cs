@@ -335,6 +335,8 @@ public sealed partial class RobotGrain(
             Kernel = o.Kernel ?? defaults.Kernel,
             TdoaSigmaMetres = o.TdoaSigmaMetres ?? defaults.TdoaSigmaMetres,
             ReorderLagSeconds = o.ReorderLagSeconds ?? defaults.ReorderLagSeconds,
+            // Only with a registered tag offset: an unknown robot's tag height is not known.
+            HoldTagHeight = o.HoldTagHeight && _settings is not null,
         };
         _filter = new RobotFilter(map, filterOptions, LoadBiasModel(_config.BiasModelVersion));
         UseMap(map);
