@@ -133,7 +133,9 @@ public sealed class ServerEndToEndTests(SharedServer shared) : IClassFixture<Sha
         {
             SiteId = site,
             RobotId = "tug-07",
-            TagOffset = new Vector3(),
+
+            // The tag rides 0.5 m above the floor: the server holds a registered ground robot's tag at that height.
+            TagOffset = new Vector3 { Z = TagPosition.Z },
             MotionModel = MotionModel.ConstantVelocity,
         }, deadline: Deadline());
 
