@@ -33,6 +33,7 @@
     framesDrawn: 0,
     ellipsesDrawn: 0,
     robotsDrawn: 0,
+    frameMsAverage: 0, // script time per frame (ms), exponentially averaged: a smoothness figure for benchmarks
     dropped: 0,
   };
   window.fleetView = view;
@@ -126,8 +127,7 @@
       icon.className = "state";
       icon.width = 36; icon.height = 36;
       const c = icon.getContext("2d");
-      c.scale(2, 2);
-      drawGlyph(c, s, 9, 9, 0, 6);
+      drawGlyphs(c, s, [[18, 18]], 12, 2);
       const label = document.createElement("span");
       label.textContent = s.label;
       const n = document.createElement("span");
@@ -419,29 +419,36 @@
 
   // ---------- frame ----------
 
-  function drawGlyph(c, state, x, y, yaw, radius) {
-    c.fillStyle = state.colour;
+  // Draws one state's glyph at every point in one batched path per pass (a few canvas calls for any number of robots).
+  function drawGlyphs(c, state, points, radius, unit) {
+    if (points.length === 0) return;
+    c.lineWidth = 1.2 * unit;
     c.strokeStyle = "#1d2126";
-    c.lineWidth = 1.2;
     c.beginPath();
     switch (state.shape) {
       case "disc":
-        c.arc(x, y, radius, 0, 2 * Math.PI); c.fill(); c.stroke();
+        for (const [x, y] of points) { c.moveTo(x + radius, y); c.arc(x, y, radius, 0, 2 * Math.PI); }
+        c.fillStyle = state.colour; c.fill(); c.stroke();
         break;
       case "ring":
-        c.arc(x, y, radius, 0, 2 * Math.PI); c.fillStyle = "#ffffff"; c.fill(); c.stroke();
-        c.beginPath(); c.lineWidth = radius * 0.55; c.strokeStyle = state.colour; c.arc(x, y, radius * 0.62, 0, 2 * Math.PI); c.stroke();
+        for (const [x, y] of points) { c.moveTo(x + radius, y); c.arc(x, y, radius, 0, 2 * Math.PI); }
+        c.fillStyle = "#ffffff"; c.fill(); c.stroke();
+        c.beginPath();
+        for (const [x, y] of points) { c.moveTo(x + radius * 0.62, y); c.arc(x, y, radius * 0.62, 0, 2 * Math.PI); }
+        c.lineWidth = radius * 0.55; c.strokeStyle = state.colour; c.stroke();
         break;
-      case "diamond":
-        c.moveTo(x, y - radius * 1.25); c.lineTo(x + radius * 1.25, y); c.lineTo(x, y + radius * 1.25); c.lineTo(x - radius * 1.25, y); c.closePath();
-        c.fill(); c.stroke();
+      case "diamond": {
+        const k = radius * 1.25;
+        for (const [x, y] of points) { c.moveTo(x, y - k); c.lineTo(x + k, y); c.lineTo(x, y + k); c.lineTo(x - k, y); c.closePath(); }
+        c.fillStyle = state.colour; c.fill(); c.stroke();
         break;
+      }
       case "cross": {
         const k = radius * 0.95;
-        c.lineWidth = radius * 0.7; c.strokeStyle = "#1d2126"; c.lineCap = "round";
-        c.moveTo(x - k, y - k); c.lineTo(x + k, y + k); c.moveTo(x + k, y - k); c.lineTo(x - k, y + k); c.stroke();
-        c.beginPath(); c.lineWidth = radius * 0.38; c.strokeStyle = state.colour;
-        c.moveTo(x - k, y - k); c.lineTo(x + k, y + k); c.moveTo(x + k, y - k); c.lineTo(x - k, y + k); c.stroke();
+        for (const [x, y] of points) { c.moveTo(x - k, y - k); c.lineTo(x + k, y + k); c.moveTo(x + k, y - k); c.lineTo(x - k, y + k); }
+        c.lineCap = "round";
+        c.lineWidth = radius * 0.7; c.stroke();
+        c.lineWidth = radius * 0.38; c.strokeStyle = state.colour; c.stroke();
         c.lineCap = "butt";
         break;
       }
@@ -548,30 +555,30 @@
       ctx.setLineDash([]);
     }
 
-    // Robots: heading tick, then the state glyph (greyed when no update came for a while).
+    // Robots: heading ticks, then the state glyphs (faded when no update came for a while), batched per state.
     const radius = 5 * dpr;
-    ctx.lineCap = "round";
-    for (const s of STATES) {
-      for (const { r, stale, x, y } of byState.get(s.key)) {
-        ctx.globalAlpha = stale ? 0.35 : 1;
-        if (isFinite(r.yaw)) {
-          ctx.strokeStyle = "#1d2126";
-          ctx.lineWidth = 2 * dpr;
-          ctx.beginPath();
-          ctx.moveTo(x, y);
-          ctx.lineTo(x + Math.cos(r.yaw) * radius * 2.1, y - Math.sin(r.yaw) * radius * 2.1);
-          ctx.stroke();
+    for (const stale of [false, true]) {
+      ctx.globalAlpha = stale ? 0.35 : 1;
+      ctx.strokeStyle = "#1d2126";
+      ctx.lineWidth = 2 * dpr;
+      ctx.lineCap = "round";
+      ctx.beginPath();
+      for (const list of byState.values()) {
+        for (const d of list) {
+          if (d.stale !== stale || !isFinite(d.r.yaw)) continue;
+          ctx.moveTo(d.x, d.y);
+          ctx.lineTo(d.x + Math.cos(d.r.yaw) * radius * 2.1, d.y - Math.sin(d.r.yaw) * radius * 2.1);
         }
+      }
 
-        ctx.save();
-        ctx.lineWidth = 1.2 * dpr;
-        drawGlyphScaled(s, x, y, radius, dpr);
-        ctx.restore();
+      ctx.stroke();
+      ctx.lineCap = "butt";
+      for (const s of STATES) {
+        drawGlyphs(ctx, s, byState.get(s.key).filter((d) => d.stale === stale).map((d) => [d.x, d.y]), radius, dpr);
       }
     }
 
     ctx.globalAlpha = 1;
-    ctx.lineCap = "butt";
     if (showLabels) {
       ctx.font = (10 * dpr) + "px system-ui, sans-serif";
       ctx.fillStyle = "#1d2126";
@@ -587,6 +594,7 @@
     }
 
     view.framesDrawn++;
+    view.frameMsAverage += 0.05 * ((performance.now() - now) - view.frameMsAverage);
     view.ellipsesDrawn = ellipses;
     view.robotsDrawn = robots.length;
     updateStatus(now, counts, robots.length);
@@ -612,12 +620,6 @@
       ctx.fillStyle = high ? "#D55E00" : "#3b4048";
       ctx.fillText(text, x, y);
     }
-  }
-
-  function drawGlyphScaled(state, x, y, radius, dpr) {
-    ctx.translate(x, y);
-    ctx.scale(dpr, dpr);
-    drawGlyph(ctx, state, 0, 0, 0, radius / dpr);
   }
 
   let lastStatus = 0;
