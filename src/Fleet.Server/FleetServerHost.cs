@@ -1,5 +1,6 @@
 using Fleet.Server.Grpc;
 using Fleet.Server.Hosting;
+using Fleet.Server.LiveView;
 using Microsoft.Extensions.Options;
 
 namespace Fleet.Server;
@@ -23,7 +24,7 @@ public static class FleetServerHost
 
         var options = (builder.Configuration.GetSection(FleetServerOptions.SectionName).Get<FleetServerOptions>() ?? new FleetServerOptions()).ResolvePorts();
         builder.Services.AddSingleton(Options.Create(options));
-        builder.AddFleetKestrel(options).AddFleetOrleans(options);
+        builder.AddFleetKestrel(options).AddFleetOrleans(options).AddFleetLiveView(options);
         builder.Services
             .AddFleetCore(builder.Configuration, options)
             .AddFleetGrpc(options)
@@ -108,5 +109,6 @@ public static class FleetServerHost
         app.MapGrpcService<SiteGrpcService>();
         app.MapGrpcHealthChecksService();
         app.MapGrpcReflectionService();
+        app.MapFleetLiveView();
     }
 }

@@ -46,6 +46,7 @@ public sealed class ServerHarness : IAsyncDisposable
             ["Fleet:Server:ListenAddress"] = "127.0.0.1",
             ["Fleet:Server:GrpcPort"] = "0",
             ["Fleet:Server:MetricsPort"] = "0",
+            ["Fleet:LiveView:Port"] = "0",
             ["Fleet:Server:SiloPort"] = "0",
             ["Fleet:Server:GatewayPort"] = "0",
             ["Logging:LogLevel:Default"] = "Warning",

@@ -201,7 +201,7 @@ def main():
         grpc_port, metrics_port = free_port(), free_port()
         server = subprocess.Popen(
             ["dotnet", args.server_dll, f"--Fleet:Server:GrpcPort={grpc_port}", f"--Fleet:Server:MetricsPort={metrics_port}",
-             f"--Fleet:Server:SiloPort={free_port()}", f"--Fleet:Server:GatewayPort={free_port()}",
+             f"--Fleet:Server:SiloPort={free_port()}", f"--Fleet:Server:GatewayPort={free_port()}", "--Fleet:LiveView:Port=0",
              "--Fleet:Server:ListenAddress=127.0.0.1", f"--Fleet:Server:DataDirectory={os.path.join(work, 'data')}",
              "--Logging:LogLevel:Default=Warning"],
             stdout=open(os.path.join(work, "server.log"), "w"), stderr=subprocess.STDOUT)

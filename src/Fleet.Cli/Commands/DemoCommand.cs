@@ -3,12 +3,14 @@ using System.Diagnostics;
 using System.Globalization;
 using System.Text;
 using Fleet.Contracts.V1;
+using Fleet.Data;
 using Fleet.Data.BiasModels;
 using Fleet.Estimation.Bias.Training;
 using Fleet.Estimation.Geometry;
 using Fleet.Estimation.Measurements;
 using Fleet.Server;
 using Fleet.Server.Clients;
+using Fleet.Server.LiveView;
 using Fleet.Simulation;
 using Google.Protobuf;
 using Grpc.Core;
@@ -37,17 +39,19 @@ internal static class DemoCommand
         var seed = new Option<int>("--seed") { Description = "Random seed", DefaultValueFactory = _ => 7 };
         var noBias = new Option<bool>("--no-bias-model") { Description = "Run without a learned bias model" };
         var data = new Option<DirectoryInfo>("--data") { Description = "Server data folder (default: a new temporary folder)" };
+        var viewPort = new Option<int>("--view-port") { Description = "Port of the live floor view (0: a free port)", DefaultValueFactory = _ => 0 };
+        var hold = new Option<bool>("--hold") { Description = "Keep the server and live view running after the run, until Ctrl+C" };
         var command = new Command("demo", "Run the Fleet server on an invented warehouse, drive a simulated fleet through gRPC, and show live poses and accuracy.")
         {
-            robots, duration, speed, layout, seed, noBias, data,
+            robots, duration, speed, layout, seed, noBias, data, viewPort, hold,
         };
         command.SetAction((parse, cancellationToken) => RunAsync(
             parse.GetValue(robots), parse.GetValue(duration), parse.GetValue(speed), parse.GetValue(layout)!, parse.GetValue(seed),
-            !parse.GetValue(noBias), parse.GetValue(data)?.FullName, cancellationToken));
+            !parse.GetValue(noBias), parse.GetValue(data)?.FullName, parse.GetValue(viewPort), parse.GetValue(hold), cancellationToken));
         return command;
     }
 
-    private static async Task<int> RunAsync(int robotCount, double duration, double speed, string layoutName, int seed, bool useBias, string? dataDirectory, CancellationToken cancellationToken)
+    private static async Task<int> RunAsync(int robotCount, double duration, double speed, string layoutName, int seed, bool useBias, string? dataDirectory, int viewPort, bool hold, CancellationToken cancellationToken)
     {
         if (robotCount < 1 || duration <= 0 || speed <= 0)
         {
@@ -55,8 +59,20 @@ internal static class DemoCommand
             return 2;
         }
 
+        if (viewPort is < 0 or > 65535)
+        {
+            Console.Error.WriteLine("fleet: --view-port must be 0 (a free port) or 1–65535");
+            return 2;
+        }
+
         var dataDir = dataDirectory ?? Path.Combine(Path.GetTempPath(), "fleet-demo-" + Environment.ProcessId.ToString(CultureInfo.InvariantCulture));
         Directory.CreateDirectory(dataDir);
+        var simulation = new SimulationOptions { Layout = layoutName, RobotCount = robotCount, DurationSeconds = duration, Seed = seed };
+        var generator = new MeasurementGenerator(simulation);
+
+        // The live view shows racks and the floor from a site file; the server only stores anchors.
+        var siteFile = Path.Combine(dataDir, $"demo-site-{layoutName}.json");
+        SiteFile.Write(siteFile, generator.Layout);
         await using var app = await FleetServerHost.StartAsync([], builder => builder.Configuration.AddInMemoryCollection(new Dictionary<string, string?>
         {
             ["Fleet:Server:GrpcPort"] = "0",
@@ -64,16 +80,17 @@ internal static class DemoCommand
             ["Fleet:Server:SiloPort"] = "0",
             ["Fleet:Server:GatewayPort"] = "0",
             ["Fleet:Server:DataDirectory"] = dataDir,
+            ["Fleet:LiveView:Port"] = viewPort.ToString(CultureInfo.InvariantCulture),
+            [$"Fleet:LiveView:SiteFiles:{SiteId}"] = siteFile,
             ["Logging:LogLevel:Default"] = "Warning",
         }), cancellationToken: cancellationToken);
         var address = FleetServerHost.GetGrpcAddress(app);
         var options = FleetServerHost.GetOptions(app);
         Console.WriteLine($"server: gRPC {address}  metrics http://127.0.0.1:{options.MetricsPort}/metrics  data {dataDir}");
+        Console.WriteLine($"live floor view: {LiveViewEndpoints.GetAddress(app, SiteId)}");
 
         using var channel = GrpcChannel.ForAddress(address);
         var sites = new SiteService.SiteServiceClient(channel);
-        var simulation = new SimulationOptions { Layout = layoutName, RobotCount = robotCount, DurationSeconds = duration, Seed = seed };
-        var generator = new MeasurementGenerator(simulation);
         await SiteSetup.ApplyAsync(sites, SiteId, generator.Layout.Anchors, generator.Robots, "Harbor Point DC (invented)", cancellationToken);
         Console.WriteLine($"site {SiteId}: layout {layoutName}, {generator.Layout.Anchors.Count} anchors, {robotCount} robots");
         foreach (var warning in generator.Layout.Anchors.Warnings)
@@ -94,7 +111,7 @@ internal static class DemoCommand
             Console.WriteLine("bias model uploaded and activated");
         }
 
-        var board = new DemoBoard();
+        var board = new DemoBoard { Header = $"live floor view: {LiveViewEndpoints.GetAddress(app, SiteId)}" };
         using var watchCancel = CancellationTokenSource.CreateLinkedTokenSource(cancellationToken);
         var watchTask = WatchAsync(new PoseService.PoseServiceClient(channel), board, watchCancel.Token);
         var ingest = await DriveAsync(new IngestService.IngestServiceClient(channel), generator, speed, board, cancellationToken);
@@ -107,6 +124,19 @@ internal static class DemoCommand
         board.Draw(final: true);
         Console.WriteLine(string.Create(CultureInfo.InvariantCulture,
             $"ingest: {ingest.Sent} measurements in {ingest.Batches} batches; acknowledged {ingest.Accepted} accepted, {ingest.DownWeighted} down-weighted, {ingest.Buffered} buffered, {ingest.Rejected} rejected"));
+        if (hold && !cancellationToken.IsCancellationRequested)
+        {
+            Console.WriteLine($"run finished; the server and the live view ({LiveViewEndpoints.GetAddress(app, SiteId)}) keep running until Ctrl+C");
+            try
+            {
+                await Task.Delay(Timeout.Infinite, cancellationToken);
+            }
+            catch (OperationCanceledException)
+            {
+                // Ctrl+C.
+            }
+        }
+
         await app.StopAsync(CancellationToken.None);
         Console.WriteLine("Next: `fleet serve` runs the server on its own; `fleet watch --site ID` prints a running server's poses.");
         return 0;
@@ -241,6 +271,9 @@ internal static class DemoCommand
         private long _poses;
         private double _lastPrinted = double.NegativeInfinity;
 
+        /// <summary>A line repeated above every redraw (the live view's address), so it never scrolls away.</summary>
+        public string? Header { get; init; }
+
         public void AddTruth(TruthRecord truth)
         {
             lock (_gate)
@@ -315,6 +348,11 @@ internal static class DemoCommand
                 if (_interactive && !final)
                 {
                     sb.Append("\u001b[H\u001b[2J");
+                }
+
+                if (Header is not null && _interactive && !final)
+                {
+                    sb.AppendLine(Header);
                 }
 
                 if (!double.IsNaN(simulatedTime))

@@ -406,6 +406,7 @@ public static class IngestBenchmark
             ["Fleet:Server:ListenAddress"] = "127.0.0.1",
             ["Fleet:Server:GrpcPort"] = "0",
             ["Fleet:Server:MetricsPort"] = "-1",
+            ["Fleet:LiveView:Enabled"] = "false",
             ["Fleet:Server:SiloPort"] = "0",
             ["Fleet:Server:GatewayPort"] = "0",
             ["Fleet:Server:NoopIngest"] = noop ? "true" : "false",

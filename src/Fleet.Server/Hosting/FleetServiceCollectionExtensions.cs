@@ -162,7 +162,7 @@ public static class FleetServiceCollectionExtensions
         return ((IPEndPoint)listener.LocalEndpoint).Port;
     }
 
-    private static void Listen(KestrelServerOptions kestrel, string address, int port, HttpProtocols protocols)
+    internal static void Listen(KestrelServerOptions kestrel, string address, int port, HttpProtocols protocols)
     {
         if (string.Equals(address, "localhost", StringComparison.OrdinalIgnoreCase))
         {
