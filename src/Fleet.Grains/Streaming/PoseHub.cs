@@ -43,10 +43,18 @@ public sealed class PoseFilter
 /// <summary>
 /// One per silo: robot grains publish each new pose here, and every open pose stream holds a
 /// <see cref="PoseSubscription"/>. Publishing never blocks on subscribers: it only replaces an entry in each
-/// matching subscriber's bounded queue. Also keeps the latest pose of each robot loaded on this silo.
+/// matching subscriber's bounded queue. Also keeps the latest pose of each robot loaded on this silo. In a cluster,
+/// <see cref="Outbound"/> hands each local pose to the cross-silo relay and <see cref="Deliver"/> takes poses relayed
+/// from other silos.
 /// </summary>
 public sealed class PoseHub(FleetInstruments instruments)
 {
+    /// <summary>Set in cluster mode: takes every locally produced pose for other silos (must never block).</summary>
+    public Action<PoseSnapshot>? Outbound { get; set; }
+
+    /// <summary>Raised with the site id when a subscription opens (the relay registers the silo for that site).</summary>
+    public event Action<string>? SubscriptionOpened;
+
     private readonly ConcurrentDictionary<(string SiteId, string RobotId), PoseSnapshot> _latest = new();
     private readonly Lock _gate = new();
     private PoseSubscription[] _subscriptions = [];
@@ -57,6 +65,27 @@ public sealed class PoseHub(FleetInstruments instruments)
     {
         _latest[(pose.SiteId, pose.RobotId)] = pose;
         instruments.PosePublished(pose.SiteId);
+        Outbound?.Invoke(pose);
+        Offer(pose);
+    }
+
+    /// <summary>A pose produced on another silo: offered to this silo's subscribers only (not counted as published here).</summary>
+    public void Deliver(PoseSnapshot pose) => Offer(pose);
+
+    /// <summary>Sites with at least one open subscription on this silo.</summary>
+    public HashSet<string> SubscribedSites()
+    {
+        var sites = new HashSet<string>(StringComparer.Ordinal);
+        foreach (var subscription in Volatile.Read(ref _subscriptions))
+        {
+            sites.Add(subscription.Filter.SiteId);
+        }
+
+        return sites;
+    }
+
+    private void Offer(PoseSnapshot pose)
+    {
         var subscriptions = Volatile.Read(ref _subscriptions);
         foreach (var subscription in subscriptions)
         {
@@ -97,6 +126,7 @@ public sealed class PoseHub(FleetInstruments instruments)
         }
 
         instruments.SubscriberOpened(filter.SiteId);
+        SubscriptionOpened?.Invoke(filter.SiteId);
         return subscription;
     }
 
