@@ -1,4 +1,5 @@
 using System.Collections.Concurrent;
+using System.Diagnostics.Metrics;
 using Fleet.Grains.Telemetry;
 
 namespace Fleet.Grains.Streaming;
@@ -47,7 +48,7 @@ public sealed class PoseFilter
 /// <see cref="Outbound"/> hands each local pose to the cross-silo relay and <see cref="Deliver"/> takes poses relayed
 /// from other silos.
 /// </summary>
-public sealed class PoseHub(FleetInstruments instruments)
+public sealed class PoseHub
 {
     /// <summary>Set in cluster mode: takes every locally produced pose for other silos (must never block).</summary>
     public Action<PoseSnapshot>? Outbound { get; set; }
@@ -59,12 +60,22 @@ public sealed class PoseHub(FleetInstruments instruments)
     private readonly Lock _gate = new();
     private PoseSubscription[] _subscriptions = [];
 
+    private readonly FleetInstruments _instruments;
+
+    public PoseHub(FleetInstruments instruments)
+    {
+        _instruments = instruments;
+        // Robots by the tracking state of their latest pose, per site (this silo's robots; a cluster's silos add up).
+        _instruments.Meter.CreateObservableGauge(FleetInstrumentNames.RobotsTracking, ObserveTracking, "{robot}",
+            "Loaded robots by tracking state of their latest pose.");
+    }
+
     public int SubscriberCount => Volatile.Read(ref _subscriptions).Length;
 
     public void Publish(PoseSnapshot pose)
     {
         _latest[(pose.SiteId, pose.RobotId)] = pose;
-        instruments.PosePublished(pose.SiteId);
+        _instruments.PosePublished(pose.SiteId);
         Outbound?.Invoke(pose);
         Offer(pose);
     }
@@ -96,6 +107,25 @@ public sealed class PoseHub(FleetInstruments instruments)
         }
     }
 
+    private IEnumerable<Measurement<int>> ObserveTracking()
+    {
+        var counts = new Dictionary<(string Site, RobotTrackState State), int>();
+        foreach (var (key, pose) in _latest)
+        {
+            counts[(key.SiteId, pose.State)] = counts.GetValueOrDefault((key.SiteId, pose.State)) + 1;
+        }
+
+        var measurements = new List<Measurement<int>>(counts.Count);
+        foreach (var ((site, state), count) in counts)
+        {
+            measurements.Add(new Measurement<int>(count,
+                new KeyValuePair<string, object?>(FleetInstrumentNames.Site, site),
+                new KeyValuePair<string, object?>(FleetInstrumentNames.TrackingState, state.ToString().ToLowerInvariant())));
+        }
+
+        return measurements;
+    }
+
     /// <summary>Drops the cached pose of a robot whose filter was unloaded.</summary>
     public void Forget(string siteId, string robotId) => _latest.TryRemove((siteId, robotId), out _);
 
@@ -125,7 +155,7 @@ public sealed class PoseHub(FleetInstruments instruments)
             _subscriptions = [.. _subscriptions, subscription];
         }
 
-        instruments.SubscriberOpened(filter.SiteId);
+        _instruments.SubscriberOpened(filter.SiteId);
         SubscriptionOpened?.Invoke(filter.SiteId);
         return subscription;
     }
@@ -143,10 +173,10 @@ public sealed class PoseHub(FleetInstruments instruments)
             _subscriptions = [.. _subscriptions.AsSpan(0, index), .. _subscriptions.AsSpan(index + 1)];
         }
 
-        instruments.SubscriberClosed(subscription.Filter.SiteId);
-        instruments.UpdatesDropped(subscription.Filter.SiteId, subscription.TakeUnreportedDrops());
+        _instruments.SubscriberClosed(subscription.Filter.SiteId);
+        _instruments.UpdatesDropped(subscription.Filter.SiteId, subscription.TakeUnreportedDrops());
     }
 
     internal void ReportDrops(PoseSubscription subscription) =>
-        instruments.UpdatesDropped(subscription.Filter.SiteId, subscription.TakeUnreportedDrops());
+        _instruments.UpdatesDropped(subscription.Filter.SiteId, subscription.TakeUnreportedDrops());
 }
