@@ -98,6 +98,26 @@ def scrape_gauge(port, name):
     return total
 
 
+def scrape_names(port):
+    with urllib.request.urlopen(f"http://127.0.0.1:{port}/metrics", timeout=10) as r:
+        text = r.read().decode()
+    return {re.split(r"[{ ]", line, maxsplit=1)[0] for line in text.splitlines() if line and not line.startswith("#")}
+
+
+# Created on the first event, so absent from a healthy run's scrape; the name follows the same exporter rules.
+FIRST_EVENT_ONLY = {"fleet_pose_updates_dropped_total"}
+
+
+def deploy_metric_names():
+    """Every Fleet metric name the dashboard and the alert rules use."""
+    names = set()
+    for path in ("deploy/grafana/dashboards/fleet.json", "deploy/prometheus/alerts.yml"):
+        with open(os.path.join(REPO, path)) as f:
+            names |= set(re.findall(r"\b(?:fleet|rpc_server)_[a-z_]+", f.read()))
+    # Label names share the prefix; keep metric names only.
+    return {n for n in names if n not in ("fleet_site", "fleet_anchor", "fleet_outcome", "fleet_rejection_reason", "fleet_tracking_state")}
+
+
 def tdoa_batch(measurements_pb2, r, k0, count):
     batch = measurements_pb2.MeasurementBatch(site_id=SITE)
     robot = batch.robots.add(robot_id=robot_id(r))
@@ -186,6 +206,9 @@ def run(args, checks, work):
 
         active_a = scrape_gauge(a_ports["metrics"], "fleet_robots_active")
         active_b = scrape_gauge(b_ports["metrics"], "fleet_robots_active")
+        exported = scrape_names(a_ports["metrics"]) | scrape_names(b_ports["metrics"])
+        missing = sorted(deploy_metric_names() - exported - FIRST_EVENT_ONLY)
+        checks.check("dashboard and alert rules use only metric names the server exports", not missing, str(missing))
         checks.check("robots spread over both silos", active_a > 0 and active_b > 0 and active_a + active_b == ROBOTS,
                      f"A {active_a}, B {active_b}")
         checks.check("WatchPoses on silo B receives every robot (ingest went to A)",
