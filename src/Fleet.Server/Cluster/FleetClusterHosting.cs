@@ -88,10 +88,15 @@ public static class FleetClusterHosting
         return silo;
     }
 
-    /// <summary>The cross-silo pose relay and the gRPC mapping of silo-loss failures to UNAVAILABLE.</summary>
+    /// <summary>
+    /// The cross-silo pose relay, the gRPC mapping of silo-loss failures to UNAVAILABLE, and random placement: robot
+    /// grains are many, small and alike, so spreading them at random balances silos without waiting for load statistics
+    /// (the default resource-optimised placement keeps new activations local while the statistics are young).
+    /// </summary>
     public static IServiceCollection AddFleetPoseRelay(this IServiceCollection services, FleetClusterOptions cluster)
     {
         services.TryAddSingleton(Options.Create(cluster));
+        services.AddSingleton<PlacementStrategy, RandomPlacement>();
         services.AddSingleton<ClusterPoseRelay>();
         services.AddSingleton<ILifecycleParticipant<ISiloLifecycle>>(sp => sp.GetRequiredService<ClusterPoseRelay>());
         services.AddSingleton<SiloLossInterceptor>();
