@@ -11,7 +11,7 @@ at known spots, streams their TDOAs through silo A, and checks:
      declares B dead are retried), B's robots reactivate on A from their stored last pose, and a WatchPoses stream on A
      opened before the kill keeps receiving every robot. Prints how long that took.
 
-Usage: cluster_check.py --postgres CONNSTR [--server-dll PATH]. CONNSTR is an Npgsql connection string (also read from
+Usage: cluster_check.py --postgres CONNSTR [--redis HOST:PORT] [--server-dll PATH]. CONNSTR is an Npgsql connection string (also read from
 FLEET_TEST_POSTGRES). When PostgreSQL is not reachable it prints SKIP with the reason and exits 0 (.ci/run starts one
 with tests/outside/postgres_service.sh, so in CI it always runs).
 """
@@ -59,12 +59,13 @@ def reachable(host, port):
         return False
 
 
-def start_server(dll, name, work, postgres):
+def start_server(dll, name, work, postgres, redis=None):
     ports = {k: free_port() for k in ("grpc", "metrics", "silo", "gateway")}
     env = dict(os.environ)
     env.update({
-        "Fleet__Cluster__Clustering": "PostgreSql",
-        "Fleet__Cluster__ConnectionString": postgres,
+        "Fleet__Cluster__Clustering": "Redis" if redis else "PostgreSql",
+        "Fleet__Cluster__ConnectionString": redis or postgres,
+        "Fleet__Cluster__RegistryConnectionString": postgres,
         "Fleet__Cluster__ClusterId": "py-cluster-check",
         "Fleet__Cluster__ProbeTimeout": "00:00:01",
         "Fleet__Cluster__MissedProbesLimit": "2",
@@ -171,8 +172,8 @@ def run(args, checks, work):
     from fleet.v1 import geometry_pb2, ingest_service_pb2, ingest_service_pb2_grpc, measurements_pb2
     from fleet.v1 import pose_service_pb2, pose_service_pb2_grpc, site_pb2, site_service_pb2, site_service_pb2_grpc
 
-    a, a_ports, a_log = start_server(args.server_dll, "silo-a", work, args.postgres)
-    b, b_ports, b_log = start_server(args.server_dll, "silo-b", work, args.postgres)
+    a, a_ports, a_log = start_server(args.server_dll, "silo-a", work, args.postgres, args.redis)
+    b, b_ports, b_log = start_server(args.server_dll, "silo-b", work, args.postgres, args.redis)
     try:
         channel_a = wait_ready(f"127.0.0.1:{a_ports['grpc']}", 90)
         channel_b = wait_ready(f"127.0.0.1:{b_ports['grpc']}", 90)
@@ -284,6 +285,8 @@ def main():
     parser = argparse.ArgumentParser()
     parser.add_argument("--server-dll", default=os.path.join(REPO, "src", "Fleet.Server", "bin", "Release", "net10.0", "Fleet.Server.dll"))
     parser.add_argument("--postgres", default=os.environ.get("FLEET_TEST_POSTGRES", ""))
+    parser.add_argument("--redis", default=os.environ.get("FLEET_TEST_REDIS", ""),
+                        help="host:port: Redis membership instead of PostgreSQL (the registry stays on PostgreSQL)")
     args = parser.parse_args()
     if not args.postgres:
         print("SKIP cluster: no PostgreSQL given (--postgres or FLEET_TEST_POSTGRES; .ci/run starts one)")
