@@ -31,4 +31,13 @@ public sealed class FleetGrainOptions
 
     /// <summary>How late a sample may arrive and still be used (s); null keeps the estimation core's default.</summary>
     public double? ReorderLagSeconds { get; set; }
+
+    /// <summary>A reactivated robot resumes from its stored last pose only if it was saved at most this long ago.</summary>
+    public TimeSpan LastPoseMaxAge { get; set; } = TimeSpan.FromMinutes(2);
+
+    /// <summary>
+    /// Speed bound (m/s) by which a restored pose's uncertainty grows per second since it was saved; 2 m/s covers
+    /// warehouse ground robots (common practice: AMRs and tuggers drive at most about 2 m/s).
+    /// </summary>
+    public double LastPoseSpeedBound { get; set; } = 2.0;
 }

@@ -25,7 +25,10 @@ public sealed partial class RobotGrain(
     AnchorHealthTracker anchorHealth,
     FleetInstruments instruments,
     IOptions<FleetGrainOptions> options,
-    ILogger<RobotGrain> logger) : Grain, IRobotGrain
+    ILogger<RobotGrain> logger,
+    RobotPoseLog? poseLog = null,
+    IRobotPoseStore? poseStore = null,
+    TimeProvider? timeProvider = null) : Grain, IRobotGrain
 {
     private readonly PoseEstimate _pose = new();
     private readonly int[] _rejectedByReason = new int[RobotBatchResult.ReasonCount];
@@ -64,6 +67,7 @@ public sealed partial class RobotGrain(
         }
 
         BuildFilter();
+        RestoreLastPose();
         instruments.RobotActivated(_siteId);
         var heartbeat = options.Value.RobotHeartbeat;
         this.RegisterGrainTimer(HeartbeatAsync, heartbeat, heartbeat);
@@ -254,7 +258,9 @@ public sealed partial class RobotGrain(
         if (batch.Count > 0 && filter.State != TrackingState.Acquiring)
         {
             filter.GetPose(_pose);
-            hub.Publish(Snapshot(_pose));
+            var snapshot = Snapshot(_pose);
+            hub.Publish(snapshot);
+            poseLog?.Mark(snapshot);
             instruments.IngestLatency.Record(Stopwatch.GetElapsedTime(batch.ReceivedTimestamp).TotalSeconds,
                 new KeyValuePair<string, object?>(FleetInstrumentNames.Site, _siteId));
         }
@@ -340,6 +346,48 @@ public sealed partial class RobotGrain(
         };
         _filter = new RobotFilter(map, filterOptions, LoadBiasModel(_config.BiasModelVersion));
         UseMap(map);
+    }
+
+    /// <summary>
+    /// Seeds the new filter from the robot's stored last pose (after a silo loss or restart), with the stored
+    /// uncertainty grown by how far a ground robot can have driven since it was saved. Too old a pose is ignored.
+    /// </summary>
+    private void RestoreLastPose()
+    {
+        if (_filter is null || poseStore is null || !_config.Exists)
+        {
+            return;
+        }
+
+        StoredRobotPose? stored;
+        try
+        {
+            stored = poseStore.GetPose(_siteId, _robotId);
+        }
+        catch (Exception e) when (e is System.Data.Common.DbException or IOException or InvalidOperationException)
+        {
+            LogRestoreFailed(logger, e, _siteId, _robotId);
+            return;
+        }
+
+        if (stored is null || !double.IsFinite(stored.Time) || !double.IsFinite(stored.PositionSigma))
+        {
+            return;
+        }
+
+        var o = options.Value;
+        var age = ((timeProvider ?? TimeProvider.System).GetUtcNow() - stored.SavedAt).TotalSeconds;
+        if (age > o.LastPoseMaxAge.TotalSeconds)
+        {
+            return;
+        }
+
+        var sigma = stored.PositionSigma + (o.LastPoseSpeedBound * Math.Max(age, 0));
+        var planar = _filter.Options.Motion == MotionModelKind.PlanarOdometry;
+        var p = planar ? stored.Position : stored.TagPosition;
+        var yawSigma = double.IsFinite(stored.YawSigma) && stored.YawSigma > 0 ? stored.YawSigma : double.PositiveInfinity;
+        _filter.SeedPose(stored.Time, new Vector3D(p.X, p.Y, p.Z), double.IsFinite(stored.Yaw) ? stored.Yaw : 0, Math.Max(sigma, 0.05), yawSigma);
+        LogRestored(logger, _siteId, _robotId, sigma, age);
     }
 
     private Estimation.Bias.ITdoaBiasModel? LoadBiasModel(int version)
@@ -430,6 +478,12 @@ public sealed partial class RobotGrain(
         RejectionReason.NotInitialised => SampleRejectionReason.NotInitialised,
         _ => SampleRejectionReason.InvalidValue,
     };
+
+    [LoggerMessage(2, LogLevel.Information, "Robot {SiteId}/{RobotId} resumed from its last pose (1σ {Sigma:F2} m, saved {Age:F1} s ago)")]
+    private static partial void LogRestored(ILogger logger, string siteId, string robotId, double sigma, double age);
+
+    [LoggerMessage(3, LogLevel.Warning, "Robot {SiteId}/{RobotId}: last pose could not be read; starting from scratch")]
+    private static partial void LogRestoreFailed(ILogger logger, Exception exception, string siteId, string robotId);
 
     [LoggerMessage(1, LogLevel.Warning, "Site {SiteId}: bias model v{Version} could not be loaded; running without bias correction")]
     private static partial void LogBiasModelFailed(ILogger logger, Exception exception, string siteId, int version);

@@ -18,6 +18,8 @@ public static class FleetInstrumentNames
     public const string PoseSubscribers = "fleet.pose.subscribers";
     public const string PoseUpdatesDropped = "fleet.pose.updates.dropped";
     public const string PoseUpdatesPublished = "fleet.pose.updates.published";
+    public const string RobotsTracking = "fleet.robots.tracking";
+    public const string TrackingState = "fleet.tracking.state";
 
     public const string RpcSystemName = "rpc.system.name";
     public const string RpcMethod = "rpc.method";

@@ -86,10 +86,15 @@ internal sealed class PoseGrpcService(IGrainFactory grains, SiteDirectory sites,
         if (double.IsNaN(time))
         {
             // Default: the newest time of validity among the site's robots, so nobody is extrapolated backwards far.
+            // Asked of the robots themselves: in a cluster they live on every silo, not only in this one's hub.
             time = double.NegativeInfinity;
-            foreach (var pose in hub.LatestOfSite(request.SiteId))
+            var latest = await Task.WhenAll(robots.Select(r => grains.GetGrain<IRobotGrain>(GrainKeys.Robot(request.SiteId, r)).GetLatestPose()));
+            foreach (var pose in latest)
             {
-                time = Math.Max(time, pose.Time);
+                if (pose is not null)
+                {
+                    time = Math.Max(time, pose.Time);
+                }
             }
         }
 

@@ -6,9 +6,9 @@ using Fleet.Grains.Models;
 using Fleet.Grains.Registry;
 using Fleet.Grains.Streaming;
 using Fleet.Grains.Telemetry;
+using Fleet.Server.Cluster;
 using Fleet.Server.Grpc;
 using Fleet.Server.Models;
-using Fleet.Server.Registry;
 using Fleet.Server.Telemetry;
 using Microsoft.AspNetCore.Server.Kestrel.Core;
 using Microsoft.Extensions.Diagnostics.HealthChecks;
@@ -47,7 +47,7 @@ public static class FleetServiceCollectionExtensions
     {
         services.TryAddSingletonTimeProvider();
         services.Configure<FleetGrainOptions>(configuration.GetSection(FleetGrainOptions.SectionName));
-        services.AddSingleton<ISiteRegistry>(sp => new SqliteSiteRegistry(options.DataDirectory, sp.GetRequiredService<TimeProvider>()));
+        services.AddFleetRegistry(configuration, options);
         services.AddSingleton(sp => new FleetInstruments(sp.GetRequiredService<System.Diagnostics.Metrics.IMeterFactory>(), options.RobotMetricLabels));
         services.AddSingleton<IBiasModelLoader, BiasModelFileLoader>();
         services.AddSingleton<RobotActivityLog>();
@@ -120,14 +120,15 @@ public static class FleetServiceCollectionExtensions
         return services;
     }
 
-    /// <summary>The embedded single silo: localhost clustering, no external service.</summary>
+    /// <summary>The embedded single silo (localhost clustering, no external service) or a cluster member (<c>Fleet:Cluster</c>).</summary>
     public static WebApplicationBuilder AddFleetOrleans(this WebApplicationBuilder builder, FleetServerOptions options)
     {
         var idle = builder.Configuration.GetSection(FleetGrainOptions.SectionName).Get<FleetGrainOptions>()?.RobotIdleTimeout
             ?? new FleetGrainOptions().RobotIdleTimeout;
+        var cluster = builder.Configuration.GetFleetClusterOptions();
         builder.UseOrleans(silo =>
         {
-            silo.UseLocalhostClustering(options.SiloPort, options.GatewayPort, serviceId: "fleet", clusterId: "fleet-local");
+            silo.UseFleetClustering(cluster, options);
             silo.Configure<GrainCollectionOptions>(collection =>
             {
                 // Idle grains are looked for once per quantum; a short idle timeout needs a short quantum.
@@ -197,7 +198,7 @@ internal sealed class RegistryHealthCheck(ISiteRegistry registry) : IHealthCheck
             registry.ListSites(null, 1);
             return Task.FromResult(HealthCheckResult.Healthy());
         }
-        catch (Exception e) when (e is Microsoft.Data.Sqlite.SqliteException or IOException or InvalidOperationException)
+        catch (Exception e) when (e is System.Data.Common.DbException or IOException or InvalidOperationException or TimeoutException)
         {
             return Task.FromResult(HealthCheckResult.Unhealthy("site registry unavailable", e));
         }

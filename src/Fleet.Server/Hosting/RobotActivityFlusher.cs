@@ -29,7 +29,7 @@ internal sealed partial class RobotActivityFlusher(RobotActivityLog log, ILogger
         {
             log.Flush();
         }
-        catch (Exception e) when (e is Microsoft.Data.Sqlite.SqliteException or IOException)
+        catch (Exception e) when (e is System.Data.Common.DbException or IOException or TimeoutException)
         {
             LogFlushFailed(logger, e);
         }

@@ -14,7 +14,7 @@ namespace Fleet.Server.Registry;
 /// stored version can be exported and read by every offline command. Writes are serialised in-process so version numbers are
 /// assigned without races; reads use pooled connections. Times are stored as Unix milliseconds (UTC).
 /// </summary>
-public sealed class SqliteSiteRegistry : ISiteRegistry, IDisposable
+public sealed partial class SqliteSiteRegistry : ISiteRegistry, IDisposable
 {
     public const string FileName = "fleet-registry.db";
 
