@@ -37,7 +37,8 @@ public sealed class MultiSiloClusterTests
             registry.AddAnchorMap(Site, [.. TestScenario.Anchors.Select(a => new Anchor(a.Id, new Vector3D(a.X, a.Y, a.Z), Vector3D.Zero))]);
             for (var r = 0; r < RobotCount; r++)
             {
-                registry.PutRobot(Site, RobotId(r), Vector3D.Zero, MotionModelKind.ConstantVelocity3D);
+                // The tag rides at its spot's height (Spot: 1 m), which the server holds for registered robots.
+                registry.PutRobot(Site, RobotId(r), new Vector3D(0, 0, Spot(r).Z), MotionModelKind.ConstantVelocity3D);
             }
         }
 
