@@ -71,6 +71,7 @@ def start_server(dll, name, work, postgres, redis=None):
         "Fleet__Cluster__MissedProbesLimit": "2",
         "Fleet__Server__GrpcPort": str(ports["grpc"]),
         "Fleet__Server__MetricsPort": str(ports["metrics"]),
+        "Fleet__LiveView__Port": "0",
         "Fleet__Server__SiloPort": str(ports["silo"]),
         "Fleet__Server__GatewayPort": str(ports["gateway"]),
         "Fleet__Server__DataDirectory": os.path.join(work, name),
@@ -184,7 +185,7 @@ def run(args, checks, work):
             put.anchors.add(anchor_id=anchor_id, position=geometry_pb2.Vector3(x=x, y=y, z=z))
         sites.PutAnchorMap(put, timeout=30)
         for r in range(ROBOTS):
-            sites.PutRobot(site_service_pb2.PutRobotRequest(site_id=SITE, robot_id=robot_id(r), tag_offset=geometry_pb2.Vector3(),
+            sites.PutRobot(site_service_pb2.PutRobotRequest(site_id=SITE, robot_id=robot_id(r), tag_offset=geometry_pb2.Vector3(z=spot(r)[2]),
                                                             motion_model=site_pb2.MOTION_MODEL_CONSTANT_VELOCITY), timeout=30)
 
         watch_b = Watcher(channel_b, pose_service_pb2, pose_service_pb2_grpc)

@@ -70,7 +70,8 @@ def main():
     ports = {k: free_port() for k in ("grpc", "metrics", "silo", "gateway")}
     env = dict(os.environ, Fleet__Server__GrpcPort=str(ports["grpc"]), Fleet__Server__MetricsPort=str(ports["metrics"]),
                Fleet__Server__SiloPort=str(ports["silo"]), Fleet__Server__GatewayPort=str(ports["gateway"]),
-               Fleet__Server__DataDirectory=os.path.join(work, "data"), Logging__LogLevel__Default="Warning")
+               Fleet__Server__DataDirectory=os.path.join(work, "data"), Fleet__LiveView__Port="0",
+               Logging__LogLevel__Default="Warning")
     dll = os.path.join(REPO, "src", "Fleet.Server", "bin", "Release", "net10.0", "Fleet.Server.dll")
     server = subprocess.Popen(["dotnet", dll], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     stop = threading.Event()
@@ -85,7 +86,7 @@ def main():
             put.anchors.add(anchor_id=anchor_id, position=geometry_pb2.Vector3(x=x, y=y, z=z))
         sites.PutAnchorMap(put, timeout=30)
         for robot in SPOTS:
-            sites.PutRobot(site_service_pb2.PutRobotRequest(site_id=SITE, robot_id=robot, tag_offset=geometry_pb2.Vector3(),
+            sites.PutRobot(site_service_pb2.PutRobotRequest(site_id=SITE, robot_id=robot, tag_offset=geometry_pb2.Vector3(z=SPOTS[robot][2]),
                                                             motion_model=site_pb2.MOTION_MODEL_CONSTANT_VELOCITY), timeout=30)
         ingest = ingest_service_pb2_grpc.IngestServiceStub(channel)
         pairs = [(a, b) for a in range(len(ANCHORS)) for b in range(a + 1, len(ANCHORS))]

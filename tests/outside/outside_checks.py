@@ -117,7 +117,7 @@ def run_client(address, checks, duration_s):
     for anchor_id, x, y, z in ANCHORS:
         put.anchors.add(anchor_id=anchor_id, position=geometry_pb2.Vector3(x=x, y=y, z=z))
     sites.PutAnchorMap(put, timeout=30)
-    sites.PutRobot(site_service_pb2.PutRobotRequest(site_id=site_id, robot_id="tug-11", tag_offset=geometry_pb2.Vector3(),
+    sites.PutRobot(site_service_pb2.PutRobotRequest(site_id=site_id, robot_id="tug-11", tag_offset=geometry_pb2.Vector3(z=TAG[2]),
                                                     motion_model=site_pb2.MOTION_MODEL_CONSTANT_VELOCITY), timeout=30)
 
     # Pose stream in the background.
