@@ -24,4 +24,19 @@ public sealed class FleetGrainOptions
 
     /// <summary>How late a sample may arrive and still be used (s); null keeps the estimation core's default.</summary>
     public double? ReorderLagSeconds { get; set; }
+
+    /// <summary>How often robots' last-seen marks and pose checkpoints are written to the registry (one transaction each time).</summary>
+    public TimeSpan RegistryFlushInterval { get; set; } = TimeSpan.FromSeconds(5);
+
+    /// <summary>
+    /// A restarted robot resumes from its stored pose when that pose is at most this old (wall clock and site clock);
+    /// older poses are ignored and the robot re-acquires from scratch.
+    /// </summary>
+    public TimeSpan ResumeMaxAge { get; set; } = TimeSpan.FromSeconds(60);
+
+    /// <summary>
+    /// Speed (m/s) the resumed position sigma grows with for every second between the stored pose and the first new
+    /// sample, so a robot that kept driving while the server was down is still inside the gate.
+    /// </summary>
+    public double ResumeSpeedMetresPerSecond { get; set; } = 1.5;
 }

@@ -25,6 +25,7 @@ public sealed partial class RobotGrain(
     AnchorHealthTracker anchorHealth,
     FleetInstruments instruments,
     IOptions<FleetGrainOptions> options,
+    TimeProvider timeProvider,
     ILogger<RobotGrain> logger) : Grain, IRobotGrain
 {
     private readonly PoseEstimate _pose = new();
@@ -44,6 +45,9 @@ public sealed partial class RobotGrain(
     private int[] _anchorNisCount = [];
     private bool _seenSinceHeartbeat;
 
+    // The pose stored by a previous server run, used once to seed the filter on the first batch (see TryResume).
+    private RobotPoseCheckpoint? _resumeFrom;
+
     // Outcome counts and per-anchor tallies are pushed to the instruments and the anchor-health tracker at most once
     // per TelemetryInterval, not once per batch: both take locks shared by every robot of the site.
     private static readonly long TelemetryIntervalTicks = Stopwatch.Frequency;
@@ -61,6 +65,7 @@ public sealed partial class RobotGrain(
         {
             _settings = registry.GetRobot(_siteId, _robotId);
             activityLog.Mark(_siteId, _robotId);
+            _resumeFrom = LoadResumePose();
         }
 
         BuildFilter();
@@ -104,6 +109,7 @@ public sealed partial class RobotGrain(
         }
         else
         {
+            TryResume(batch, _filter);
             result = Run(batch, _filter, _map);
         }
 
@@ -274,6 +280,7 @@ public sealed partial class RobotGrain(
     /// <summary>Pushes accumulated outcome counts and per-anchor tallies out; called at most once per interval, on heartbeats and at deactivation.</summary>
     private void FlushTelemetry()
     {
+        CheckpointPose();
         instruments.RecordMeasurements(_siteId, _robotId, _pendingAccepted, _pendingDownWeighted, _pendingBuffered, _pendingRejectedByReason);
         _pendingAccepted = _pendingDownWeighted = _pendingBuffered = 0;
         Array.Clear(_pendingRejectedByReason);
@@ -285,6 +292,83 @@ public sealed partial class RobotGrain(
             Array.Clear(_anchorNisSum);
             Array.Clear(_anchorNisCount);
         }
+    }
+
+    /// <summary>Hands the current estimate to the activity log, which writes it to the registry on its next flush.</summary>
+    private void CheckpointPose()
+    {
+        if (_filter is null || !_config.Exists || _filter.State is TrackingState.Acquiring or TrackingState.Lost || !double.IsFinite(_filter.LastTime))
+        {
+            return;
+        }
+
+        _filter.GetPose(_pose);
+        if (!_pose.Position.IsFinite || !double.IsFinite(_pose.Yaw))
+        {
+            return;
+        }
+
+        activityLog.RecordPose(new RobotPoseCheckpoint(_siteId, _robotId, _pose.Time, _pose.Position, _pose.Yaw,
+            _pose.Velocity.IsFinite ? _pose.Velocity : Vector3D.Zero, (double[])_pose.Covariance.Clone(), timeProvider.GetUtcNow()));
+    }
+
+    private RobotPoseCheckpoint? LoadResumePose()
+    {
+        var stored = registry.GetRobotPose(_siteId, _robotId);
+        return stored is not null && timeProvider.GetUtcNow() - stored.SavedAt <= options.Value.ResumeMaxAge ? stored : null;
+    }
+
+    /// <summary>
+    /// On the first batch after activation, seeds the filter from the pose a previous server run stored, if the batch's
+    /// first sample is at most <see cref="FleetGrainOptions.ResumeMaxAge"/> later on the site clock. The position sigma
+    /// is the stored horizontal sigma grown by <see cref="FleetGrainOptions.ResumeSpeedMetresPerSecond"/> per second of
+    /// the gap, so a robot that moved meanwhile is still inside the gate; a robot that moved farther is caught by the
+    /// filter's divergence checks and re-acquires.
+    /// </summary>
+    private void TryResume(RobotBatch batch, RobotFilter filter)
+    {
+        if (_resumeFrom is not { } stored)
+        {
+            return;
+        }
+
+        _resumeFrom = null;
+        if (filter.State != TrackingState.Acquiring)
+        {
+            return;
+        }
+
+        var first = double.PositiveInfinity;
+        foreach (var t in batch.TdoaTimes)
+        {
+            first = double.IsFinite(t) ? Math.Min(first, t) : first;
+        }
+
+        foreach (var t in batch.OdometryTimes)
+        {
+            first = double.IsFinite(t) ? Math.Min(first, t) : first;
+        }
+
+        var gap = first - stored.Time;
+        var o = options.Value;
+        if (!double.IsFinite(gap) || gap < -filter.Options.ReorderLagSeconds || gap > o.ResumeMaxAge.TotalSeconds || stored.Covariance.Length != PoseEstimate.Dimension * PoseEstimate.Dimension)
+        {
+            return;
+        }
+
+        var horizontalVariance = Math.Max(stored.Covariance[0], stored.Covariance[PoseEstimate.Dimension + 1]);
+        var grown = o.ResumeSpeedMetresPerSecond * Math.Max(0, gap);
+        var positionSigma = Math.Sqrt(Math.Max(horizontalVariance, 1e-4) + (grown * grown));
+        var yawVariance = stored.Covariance[(3 * PoseEstimate.Dimension) + 3];
+        // A robot may also have turned: a heading that was known is kept, with at least a radian of doubt per 10 s.
+        var yawSigma = yawVariance < PoseEstimate.UnobservedVariance ? Math.Sqrt(yawVariance + Math.Pow(0.1 * Math.Max(0, gap), 2)) : double.PositiveInfinity;
+        if (!double.IsFinite(positionSigma) || !(positionSigma > 0) || double.IsNaN(yawSigma) || !(yawSigma > 0))
+        {
+            return;
+        }
+
+        filter.SeedPose(Math.Max(first, stored.Time), stored.Position, stored.Yaw, positionSigma, yawSigma);
+        LogResumed(logger, _siteId, _robotId, gap, positionSigma);
     }
 
     private UpdateResult SubmitTdoa(RobotFilter filter, AnchorMap map, RobotBatch batch, int i)
@@ -431,4 +515,7 @@ public sealed partial class RobotGrain(
 
     [LoggerMessage(1, LogLevel.Warning, "Site {SiteId}: bias model v{Version} could not be loaded; running without bias correction")]
     private static partial void LogBiasModelFailed(ILogger logger, Exception exception, string siteId, int version);
+
+    [LoggerMessage(2, LogLevel.Information, "Site {SiteId}: robot {RobotId} resumed from its stored pose ({GapSeconds:F1} s old, position sigma {SigmaMetres:F2} m)")]
+    private static partial void LogResumed(ILogger logger, string siteId, string robotId, double gapSeconds, double sigmaMetres);
 }

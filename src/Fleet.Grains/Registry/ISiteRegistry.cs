@@ -16,6 +16,14 @@ public sealed record BiasModelEntry(string SiteId, int Version, DateTimeOffset C
 /// <summary>What the registry keeps about a robot: tag lever arm (body frame, m), motion model, wall-clock first and last seen.</summary>
 public sealed record RobotEntry(string SiteId, string RobotId, Vector3D TagOffset, MotionModelKind Motion, DateTimeOffset FirstSeen, DateTimeOffset LastSeen);
 
+/// <summary>
+/// A robot's last estimate, kept so a restarted server can resume tracking: reference point (site frame, m), yaw
+/// (rad), velocity (m/s), 7×7 row-major covariance over (x, y, z, yaw, vx, vy, vz) at <see cref="Time"/> (s, site
+/// clock), and the wall-clock time it was taken.
+/// </summary>
+public sealed record RobotPoseCheckpoint(
+    string SiteId, string RobotId, double Time, Vector3D Position, double Yaw, Vector3D Velocity, double[] Covariance, DateTimeOffset SavedAt);
+
 /// <summary>A robot seen at a wall-clock time.</summary>
 public readonly record struct RobotSighting(string SiteId, string RobotId, DateTimeOffset Seen);
 
@@ -80,4 +88,10 @@ public interface ISiteRegistry
     void TouchRobots(IReadOnlyCollection<RobotSighting> sightings, MotionModelKind defaultMotion);
 
     IReadOnlyList<RobotEntry> ListRobots(string siteId, string? afterRobotId, int limit);
+
+    /// <summary>Stores robots' latest pose checkpoints in one transaction (newer replaces older; unknown sites skipped).</summary>
+    void SaveRobotPoses(IReadOnlyCollection<RobotPoseCheckpoint> checkpoints);
+
+    /// <summary>The robot's last stored pose checkpoint, or null.</summary>
+    RobotPoseCheckpoint? GetRobotPose(string siteId, string robotId);
 }

@@ -10,7 +10,9 @@ using Microsoft.Data.Sqlite;
 namespace Fleet.Server.Registry;
 
 /// <summary>
-/// The site registry in one SQLite file (WAL journal). Anchor maps are stored as site-file JSON (DESIGN.md), so a
+/// The site registry in one SQLite file (WAL journal, <c>synchronous = FULL</c>: a write that returned is on disk and
+/// survives a killed process or a power cut; every multi-statement change is one <c>BEGIN IMMEDIATE</c> transaction,
+/// so a crash leaves it wholly done or not at all). Anchor maps are stored as site-file JSON (DESIGN.md), so a
 /// stored version can be exported and read by every offline command. Writes are serialised in-process so version numbers are
 /// assigned without races; reads use pooled connections. Times are stored as Unix milliseconds (UTC).
 /// </summary>
@@ -250,6 +252,64 @@ public sealed class SqliteSiteRegistry : ISiteRegistry, IDisposable
         return list;
     }
 
+    public void SaveRobotPoses(IReadOnlyCollection<RobotPoseCheckpoint> checkpoints)
+    {
+        if (checkpoints.Count == 0)
+        {
+            return;
+        }
+
+        lock (_writeGate)
+        {
+            using var db = Open();
+            using var tx = new WriteTransaction(db);
+            using var cmd = Command(db, """
+                INSERT INTO robot_poses(site_id, robot_id, time_s, x, y, z, yaw, vx, vy, vz, covariance, saved_ms)
+                SELECT $s, $r, $t, $x, $y, $z, $yaw, $vx, $vy, $vz, $cov, $saved WHERE EXISTS (SELECT 1 FROM sites WHERE site_id = $s)
+                ON CONFLICT(site_id, robot_id) DO UPDATE SET time_s = excluded.time_s, x = excluded.x, y = excluded.y, z = excluded.z,
+                    yaw = excluded.yaw, vx = excluded.vx, vy = excluded.vy, vz = excluded.vz, covariance = excluded.covariance,
+                    saved_ms = excluded.saved_ms
+                WHERE excluded.saved_ms >= robot_poses.saved_ms
+                """, ("$s", string.Empty), ("$r", string.Empty), ("$t", 0.0), ("$x", 0.0), ("$y", 0.0), ("$z", 0.0), ("$yaw", 0.0),
+                ("$vx", 0.0), ("$vy", 0.0), ("$vz", 0.0), ("$cov", Array.Empty<byte>()), ("$saved", 0L));
+            foreach (var c in checkpoints)
+            {
+                cmd.Parameters["$s"].Value = c.SiteId;
+                cmd.Parameters["$r"].Value = c.RobotId;
+                cmd.Parameters["$t"].Value = c.Time;
+                cmd.Parameters["$x"].Value = c.Position.X;
+                cmd.Parameters["$y"].Value = c.Position.Y;
+                cmd.Parameters["$z"].Value = c.Position.Z;
+                cmd.Parameters["$yaw"].Value = c.Yaw;
+                cmd.Parameters["$vx"].Value = c.Velocity.X;
+                cmd.Parameters["$vy"].Value = c.Velocity.Y;
+                cmd.Parameters["$vz"].Value = c.Velocity.Z;
+                cmd.Parameters["$cov"].Value = System.Runtime.InteropServices.MemoryMarshal.AsBytes(c.Covariance.AsSpan()).ToArray();
+                cmd.Parameters["$saved"].Value = c.SavedAt.ToUnixTimeMilliseconds();
+                cmd.ExecuteNonQuery();
+            }
+
+            tx.Commit();
+        }
+    }
+
+    public RobotPoseCheckpoint? GetRobotPose(string siteId, string robotId)
+    {
+        using var db = Open();
+        using var cmd = Command(db, "SELECT time_s, x, y, z, yaw, vx, vy, vz, covariance, saved_ms FROM robot_poses WHERE site_id = $s AND robot_id = $r",
+            ("$s", siteId), ("$r", robotId));
+        using var r = cmd.ExecuteReader();
+        if (!r.Read())
+        {
+            return null;
+        }
+
+        var bytes = (byte[])r.GetValue(8);
+        var covariance = System.Runtime.InteropServices.MemoryMarshal.Cast<byte, double>(bytes).ToArray();
+        return new RobotPoseCheckpoint(siteId, robotId, r.GetDouble(0), new Vector3D(r.GetDouble(1), r.GetDouble(2), r.GetDouble(3)), r.GetDouble(4),
+            new Vector3D(r.GetDouble(5), r.GetDouble(6), r.GetDouble(7)), covariance, FromMs(r.GetInt64(9)));
+    }
+
     public void Dispose() => SqliteConnection.ClearAllPools();
 
     /// <summary>BEGIN IMMEDIATE … COMMIT in plain SQL (commands need no enlisting); rolls back unless committed.</summary>
@@ -303,6 +363,10 @@ public sealed class SqliteSiteRegistry : ISiteRegistry, IDisposable
                 site_id TEXT NOT NULL REFERENCES sites(site_id), robot_id TEXT NOT NULL,
                 tag_x REAL NOT NULL, tag_y REAL NOT NULL, tag_z REAL NOT NULL, motion TEXT NOT NULL,
                 first_seen_ms INTEGER NOT NULL, last_seen_ms INTEGER NOT NULL, PRIMARY KEY(site_id, robot_id));
+            CREATE TABLE IF NOT EXISTS robot_poses(
+                site_id TEXT NOT NULL REFERENCES sites(site_id), robot_id TEXT NOT NULL, time_s REAL NOT NULL,
+                x REAL NOT NULL, y REAL NOT NULL, z REAL NOT NULL, yaw REAL NOT NULL, vx REAL NOT NULL, vy REAL NOT NULL, vz REAL NOT NULL,
+                covariance BLOB NOT NULL, saved_ms INTEGER NOT NULL, PRIMARY KEY(site_id, robot_id));
             """);
         using var cmd = Command(db, "SELECT version FROM schema_info");
         var existing = cmd.ExecuteScalar();
@@ -382,6 +446,9 @@ public sealed class SqliteSiteRegistry : ISiteRegistry, IDisposable
     {
         var db = new SqliteConnection(_connectionString);
         db.Open();
+        // Per connection (not stored in the file): in WAL mode FULL syncs the log at every commit, so a committed
+        // transaction survives power loss, not only a killed process (sqlite.org/pragma.html#pragma_synchronous).
+        Execute(db, "PRAGMA synchronous = FULL");
         return db;
     }
 
