@@ -39,4 +39,10 @@ public sealed class FleetGrainOptions
     /// sample, so a robot that kept driving while the server was down is still inside the gate.
     /// </summary>
     public double ResumeSpeedMetresPerSecond { get; set; } = 1.5;
+
+    /// <summary>
+    /// A robot pushes its outcome counts and anchor tallies to the shared instruments and the anchor-health tracker at
+    /// most this often (and on heartbeats and deactivation); both take locks shared by the site's robots.
+    /// </summary>
+    public TimeSpan TelemetryInterval { get; set; } = TimeSpan.FromSeconds(1);
 }
