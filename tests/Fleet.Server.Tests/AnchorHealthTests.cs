@@ -135,11 +135,22 @@ public sealed class AnchorHealthTests(AnchorHealthServer fixture, ITestOutputHel
         Assert.Equal(expected, finding.Flag);
         Assert.False(string.IsNullOrWhiteSpace(finding.Reason));
 
-        // The same flag is exported as a gauge.
-        var metrics = await fixture.Server.ScrapeMetricsAsync();
-        Assert.Contains(metrics.Split('\n'), line => line.StartsWith("fleet_anchor_flagged", StringComparison.Ordinal)
-            && line.Contains($"fleet_site=\"{site}\"", StringComparison.Ordinal) && line.Contains($"fleet_anchor=\"{faultyId}\"", StringComparison.Ordinal)
-            && line.Contains($"fleet_anchor_flag=\"{AnchorHealthTracker.FlagName((AnchorFlag)(int)expected)}\"", StringComparison.Ordinal));
+        // The same flag is exported as a gauge (polled: the Prometheus exporter caches a scrape briefly).
+        var flagName = AnchorHealthTracker.FlagName((AnchorFlag)(int)expected);
+        var deadline = DateTime.UtcNow.AddSeconds(30);
+        while (true)
+        {
+            var metrics = await fixture.Server.ScrapeMetricsAsync();
+            if (metrics.Split('\n').Any(line => line.StartsWith("fleet_anchor_flagged", StringComparison.Ordinal)
+                && line.Contains($"fleet_site=\"{site}\"", StringComparison.Ordinal) && line.Contains($"fleet_anchor=\"{faultyId}\"", StringComparison.Ordinal)
+                && line.Contains($"fleet_anchor_flag=\"{flagName}\"", StringComparison.Ordinal)))
+            {
+                break;
+            }
+
+            Assert.True(DateTime.UtcNow < deadline, $"no fleet_anchor_flagged series for {faultyId} ({flagName})");
+            await Task.Delay(200);
+        }
     }
 
     private static AnchorMap Replace(AnchorMap map, int index, Func<EstimationAnchor, EstimationAnchor> change) =>
