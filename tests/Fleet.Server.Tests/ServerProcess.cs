@@ -1,8 +1,8 @@
 using System.Diagnostics;
 using System.Net;
 using System.Net.Sockets;
-using Grpc.Health.V1;
 using Grpc.Core;
+using Grpc.Health.V1;
 using Grpc.Net.Client;
 
 namespace Fleet.Server.Tests;
