@@ -40,4 +40,13 @@ public sealed class FleetGrainOptions
     /// warehouse ground robots (common practice: AMRs and tuggers drive at most about 2 m/s).
     /// </summary>
     public double LastPoseSpeedBound { get; set; } = 2.0;
+
+    /// <summary>How often robots' last-seen marks and pose checkpoints are written to the registry (one transaction each time).</summary>
+    public TimeSpan RegistryFlushInterval { get; set; } = TimeSpan.FromSeconds(5);
+
+    /// <summary>
+    /// A robot pushes its outcome counts and anchor tallies to the shared instruments and the anchor-health tracker at
+    /// most this often (and on heartbeats and deactivation); both take locks shared by the site's robots.
+    /// </summary>
+    public TimeSpan TelemetryInterval { get; set; } = TimeSpan.FromSeconds(1);
 }

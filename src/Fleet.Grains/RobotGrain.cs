@@ -41,15 +41,11 @@ public sealed partial class RobotGrain(
     private AnchorMap? _map;
     private string[] _anchorIds = [];
     private RobotFilter? _filter;
-    private int[] _anchorUsed = [];
-    private int[] _anchorRejected = [];
-    private double[] _anchorNisSum = [];
-    private int[] _anchorNisCount = [];
+    private AnchorTally[] _anchorTallies = [];
     private bool _seenSinceHeartbeat;
 
     // Outcome counts and per-anchor tallies are pushed to the instruments and the anchor-health tracker at most once
-    // per TelemetryInterval, not once per batch: both take locks shared by every robot of the site.
-    private static readonly long TelemetryIntervalTicks = Stopwatch.Frequency;
+    // per FleetGrainOptions.TelemetryInterval, not once per batch: both take locks shared by every robot of the site.
     private readonly int[] _pendingRejectedByReason = new int[RobotBatchResult.ReasonCount];
     private int _pendingAccepted;
     private int _pendingDownWeighted;
@@ -120,7 +116,7 @@ public sealed partial class RobotGrain(
         }
 
         var now = Stopwatch.GetTimestamp();
-        if (_lastTelemetryFlush == 0 || now - _lastTelemetryFlush >= TelemetryIntervalTicks)
+        if (_lastTelemetryFlush == 0 || Stopwatch.GetElapsedTime(_lastTelemetryFlush, now) >= options.Value.TelemetryInterval)
         {
             FlushTelemetry();
             _lastTelemetryFlush = now;
@@ -283,13 +279,10 @@ public sealed partial class RobotGrain(
         instruments.RecordMeasurements(_siteId, _robotId, _pendingAccepted, _pendingDownWeighted, _pendingBuffered, _pendingRejectedByReason);
         _pendingAccepted = _pendingDownWeighted = _pendingBuffered = 0;
         Array.Clear(_pendingRejectedByReason);
-        if (_anchorIds.Length > 0)
+        if (_anchorIds.Length > 0 && _filter is not null)
         {
-            anchorHealth.Record(_siteId, _anchorIds, _anchorUsed, _anchorRejected, _anchorNisSum, _anchorNisCount);
-            Array.Clear(_anchorUsed);
-            Array.Clear(_anchorRejected);
-            Array.Clear(_anchorNisSum);
-            Array.Clear(_anchorNisCount);
+            anchorHealth.Record(_siteId, _anchorIds, _anchorTallies, _filter.LastTime);
+            Array.Clear(_anchorTallies);
         }
     }
 
@@ -301,23 +294,29 @@ public sealed partial class RobotGrain(
         }
 
         var update = filter.Submit(new TdoaMeasurement(batch.TdoaTimes[i], a, b, batch.DistanceDifferences[i]));
+        ref var ta = ref _anchorTallies[a];
+        ref var tb = ref _anchorTallies[b];
         if (update.Outcome == UpdateOutcome.Rejected)
         {
-            _anchorRejected[a]++;
-            _anchorRejected[b]++;
+            ta.Rejected++;
+            tb.Rejected++;
         }
         else
         {
-            _anchorUsed[a]++;
-            _anchorUsed[b]++;
+            ta.Used++;
+            tb.Used++;
             if (double.IsFinite(update.NormalizedInnovationSquared))
             {
-                _anchorNisSum[a] += update.NormalizedInnovationSquared;
-                _anchorNisSum[b] += update.NormalizedInnovationSquared;
-                _anchorNisCount[a]++;
-                _anchorNisCount[b]++;
+                ta.NisSum += update.NormalizedInnovationSquared;
+                tb.NisSum += update.NormalizedInnovationSquared;
+                ta.NisCount++;
+                tb.NisCount++;
             }
         }
+
+        // ddiff = |p − b| − |p − a|: a long path to b makes the innovation positive, a long path to a negative.
+        ta.AddScore(-update.StandardizedInnovation);
+        tb.AddScore(update.StandardizedInnovation);
 
         return update;
     }
@@ -406,10 +405,10 @@ public sealed partial class RobotGrain(
 
     private void UseMap(AnchorMap map)
     {
-        if (_anchorIds.Length > 0)
+        if (_anchorIds.Length > 0 && _filter is not null)
         {
             // Tallies belong to the old map's anchor indices: hand them over before the arrays are replaced.
-            anchorHealth.Record(_siteId, _anchorIds, _anchorUsed, _anchorRejected, _anchorNisSum, _anchorNisCount);
+            anchorHealth.Record(_siteId, _anchorIds, _anchorTallies, _filter.LastTime);
         }
 
         _map = map;
@@ -420,10 +419,7 @@ public sealed partial class RobotGrain(
         }
 
         _anchorIds = ids;
-        _anchorUsed = new int[map.Count];
-        _anchorRejected = new int[map.Count];
-        _anchorNisSum = new double[map.Count];
-        _anchorNisCount = new int[map.Count];
+        _anchorTallies = new AnchorTally[map.Count];
     }
 
     private async Task HeartbeatAsync(CancellationToken cancellationToken)

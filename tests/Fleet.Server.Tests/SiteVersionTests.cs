@@ -1,6 +1,4 @@
 using Fleet.Contracts.V1;
-using Fleet.Data.BiasModels;
-using Fleet.Estimation.Bias;
 using Google.Protobuf;
 using Google.Rpc;
 using Grpc.Core;
@@ -53,7 +51,7 @@ public sealed class SiteVersionTests(SharedServer shared) : IClassFixture<Shared
         const string site = "bias-versions";
         await Server.Sites.CreateSiteAsync(new CreateSiteRequest { SiteId = site }, deadline: Deadline());
         await Server.Sites.PutAnchorMapAsync(TestScenario.AnchorMapRequest(site), deadline: Deadline());
-        var model = ByteString.CopyFrom(ZeroModelBytes());
+        var model = ByteString.CopyFrom(TestModels.ZeroModelBytes());
 
         var first = await Server.Sites.UploadBiasModelAsync(new UploadBiasModelRequest { SiteId = site, Model = model, Description = "first", Activate = true }, deadline: Deadline());
         var second = await Server.Sites.UploadBiasModelAsync(new UploadBiasModelRequest { SiteId = site, Model = model, Description = "second", Activate = true }, deadline: Deadline());
@@ -103,17 +101,6 @@ public sealed class SiteVersionTests(SharedServer shared) : IClassFixture<Shared
         var batch = new MeasurementBatch { SiteId = site };
         batch.Robots.Add(TestScenario.StaticTagSamples("tug-05", (9.0, 6.0, 0.5), start, count));
         return (await Server.Ingest.SubmitMeasurementsAsync(new SubmitMeasurementsRequest { Batch = batch }, deadline: Deadline())).Ack;
-    }
-
-    /// <summary>A linear bias network with all-zero weights (predicts zero bias), in the Fleet model file format.</summary>
-    private static byte[] ZeroModelBytes()
-    {
-        var inputs = LinkFeatures.CountFor(LinkFeatureSet.Full);
-        var parameters = new float[BiasNetwork.CountParameters(inputs, [])];
-        var mean = new float[inputs];
-        var std = Enumerable.Repeat(1f, inputs).ToArray();
-        var network = new BiasNetwork(LinkFeatureSet.Full, BiasActivation.Tanh, [], parameters, mean, std, 1f);
-        return BiasModelFile.ToBytes(network, new BiasModelMetadata());
     }
 
     private static DateTime Deadline() => DateTime.UtcNow.AddSeconds(30);

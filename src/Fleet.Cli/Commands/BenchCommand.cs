@@ -13,6 +13,7 @@ internal static class BenchCommand
         var bench = new Command("bench", "Measure Fleet against reference implementations in the same run and print ratios.");
         bench.Subcommands.Add(CreateFilter());
         bench.Subcommands.Add(CreateIngest());
+        bench.Subcommands.Add(CreateSoak());
         return bench;
     }
 
@@ -28,6 +29,22 @@ internal static class BenchCommand
             var result = await Fleet.Server.Benchmarking.IngestBenchmark.RunAsync(options, line => Console.Error.WriteLine(line), cancellationToken);
             Console.WriteLine(CliJson.Serialize(result));
             return 0;
+        });
+        return command;
+    }
+
+    private static Command CreateSoak()
+    {
+        var json = new Option<bool>("--json") { Description = "Print one JSON object" };
+        var minutes = new Option<double>("--minutes") { Description = "Length of the run", DefaultValueFactory = _ => new Fleet.Server.Benchmarking.SoakBenchmarkOptions().Minutes };
+        var robots = new Option<int>("--robots") { Description = "Robots streamed in real time", DefaultValueFactory = _ => new Fleet.Server.Benchmarking.SoakBenchmarkOptions().Robots };
+        var command = new Command("soak", "A long real-time run of a real server and clients on loopback with subscribers dropping: memory, acknowledgements sent against received, throughput.") { json, minutes, robots };
+        command.SetAction(async (parse, cancellationToken) =>
+        {
+            var options = new Fleet.Server.Benchmarking.SoakBenchmarkOptions { Minutes = parse.GetValue(minutes), Robots = parse.GetValue(robots) };
+            var result = await Fleet.Server.Benchmarking.SoakBenchmark.RunAsync(options, line => Console.Error.WriteLine(line), cancellationToken);
+            Console.WriteLine(CliJson.Serialize(result));
+            return result.LostAcknowledgements == 0 && result.ServerAnsweredAfterwards ? 0 : 1;
         });
         return command;
     }

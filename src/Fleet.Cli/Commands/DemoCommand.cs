@@ -175,18 +175,16 @@ internal static class DemoCommand
     private static async Task<IngestTotals> DriveAsync(IngestService.IngestServiceClient client, MeasurementGenerator generator, double speed, DemoBoard board, CancellationToken cancellationToken)
     {
         const double batchSeconds = 0.05;
-        using var call = client.StreamMeasurements(cancellationToken: cancellationToken);
         long accepted = 0, downWeighted = 0, buffered = 0, rejected = 0;
-        var reader = Task.Run(async () =>
+
+        // Acks arrive on the stream's reader task; the totals are read only after FlushAsync.
+        await using var stream = new ReconnectingIngestStream(client, onAck: ack =>
         {
-            await foreach (var response in call.ResponseStream.ReadAllAsync(cancellationToken))
-            {
-                accepted += response.Ack.Accepted;
-                downWeighted += response.Ack.DownWeighted;
-                buffered += response.Ack.Buffered;
-                rejected += response.Ack.Rejected;
-            }
-        }, cancellationToken);
+            Interlocked.Add(ref accepted, ack.Accepted);
+            Interlocked.Add(ref downWeighted, ack.DownWeighted);
+            Interlocked.Add(ref buffered, ack.Buffered);
+            Interlocked.Add(ref rejected, ack.Rejected);
+        });
 
         var batcher = new MeasurementBatcher(SiteId);
         var clock = Stopwatch.StartNew();
@@ -201,7 +199,7 @@ internal static class DemoCommand
                 if (batcher.Count > 0)
                 {
                     sent += batcher.Count;
-                    await call.RequestStream.WriteAsync(new StreamMeasurementsRequest { Batch = batcher.TakeBatch((ulong)++batches) }, cancellationToken);
+                    await stream.SendAsync(batcher.TakeBatch((ulong)++batches), cancellationToken);
                 }
 
                 var wait = TimeSpan.FromSeconds(nextFlush / speed) - clock.Elapsed;
@@ -231,11 +229,10 @@ internal static class DemoCommand
         if (batcher.Count > 0)
         {
             sent += batcher.Count;
-            await call.RequestStream.WriteAsync(new StreamMeasurementsRequest { Batch = batcher.TakeBatch((ulong)++batches) }, cancellationToken);
+            await stream.SendAsync(batcher.TakeBatch((ulong)++batches), cancellationToken);
         }
 
-        await call.RequestStream.CompleteAsync();
-        await reader;
+        await stream.FlushAsync(cancellationToken);
         return new IngestTotals(sent, batches, accepted, downWeighted, buffered, rejected);
     }
 

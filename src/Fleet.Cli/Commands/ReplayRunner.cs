@@ -18,7 +18,10 @@ internal static class ReplayRunner
         using var progress = new TerminalProgress(label);
         var evaluation = new TrackingEvaluation(site, settings);
         var length = Math.Max(1, stream.Length);
-        foreach (var record in MeasurementLog.Read(stream, logPath, diagnostics.Report))
+        var records = IsRecording(logPath)
+            ? Server.Recording.RecordingReader.ReadRecords(logPath, diagnostics.Report)
+            : MeasurementLog.Read(stream, logPath, diagnostics.Report);
+        foreach (var record in records)
         {
             evaluation.Add(record);
             progress.Report((double)stream.Position / length);
@@ -42,13 +45,20 @@ internal static class ReplayRunner
     private static IEnumerable<ObservationRecord> ReadLogCore(string logPath)
     {
         var diagnostics = new DiagnosticPrinter();
-        foreach (var record in MeasurementLog.Read(logPath, diagnostics.Report))
+        var records = IsRecording(logPath)
+            ? Server.Recording.RecordingReader.ReadRecords(logPath, diagnostics.Report)
+            : MeasurementLog.Read(logPath, diagnostics.Report);
+        foreach (var record in records)
         {
             yield return record;
         }
 
         diagnostics.Summarise();
     }
+
+    /// <summary>A server ingest recording (<c>.fleetrec</c>) rather than a JSON Lines log; it carries no robot lines or truth.</summary>
+    private static bool IsRecording(string logPath) =>
+        logPath.EndsWith(Server.Recording.IngestRecorder.FileExtension, StringComparison.OrdinalIgnoreCase);
 
     private static void RequireLog(string logPath)
     {

@@ -51,8 +51,12 @@ public enum RejectionReason
     NotInitialised,
 }
 
-/// <summary>Result of submitting one measurement. No allocation.</summary>
-public readonly record struct UpdateResult(UpdateOutcome Outcome, RejectionReason Reason, double Weight, double NormalizedInnovationSquared)
+/// <summary>
+/// Result of submitting one measurement. No allocation. <see cref="StandardizedInnovation"/> is the signed prior
+/// innovation over its predicted sigma, (z − h(x⁻))/√S, for TDOAs that reached the update (NaN otherwise); its square
+/// is <see cref="NormalizedInnovationSquared"/>.
+/// </summary>
+public readonly record struct UpdateResult(UpdateOutcome Outcome, RejectionReason Reason, double Weight, double NormalizedInnovationSquared, double StandardizedInnovation = double.NaN)
 {
     public static UpdateResult Reject(RejectionReason reason) => new(UpdateOutcome.Rejected, reason, 0, double.NaN);
 }

@@ -549,6 +549,7 @@ public sealed class RobotFilter
 
         var lever = _planar && _yawKnown ? _lever : Vector3D.Zero;
         var nis = double.NaN;
+        var standardized = double.NaN;
         var weight = 1.0;
         var baseVariance = _measurementVariance * _noiseScale * _noiseScale;
         var rEffective = baseVariance;
@@ -583,11 +584,12 @@ public sealed class RobotFilter
             if (iteration == 0)
             {
                 nis = normalized * normalized;
+                standardized = normalized;
                 AdaptNoiseScale(nis);
                 if (_options.GateEnabled && nis > _gateThreshold)
                 {
                     InflateAfterRejection();
-                    return new UpdateResult(UpdateOutcome.Rejected, RejectionReason.ChiSquareGate, 0, nis);
+                    return new UpdateResult(UpdateOutcome.Rejected, RejectionReason.ChiSquareGate, 0, nis, standardized);
                 }
             }
 
@@ -595,7 +597,7 @@ public sealed class RobotFilter
             if (!(newWeight > 0))
             {
                 InflateAfterRejection();
-                return new UpdateResult(UpdateOutcome.Rejected, RejectionReason.ZeroWeight, 0, nis);
+                return new UpdateResult(UpdateOutcome.Rejected, RejectionReason.ZeroWeight, 0, nis, standardized);
             }
 
             rEffective = baseVariance / newWeight;
@@ -631,7 +633,7 @@ public sealed class RobotFilter
         }
 
         var outcome = weight >= 0.99 ? UpdateOutcome.Accepted : UpdateOutcome.DownWeighted;
-        return new UpdateResult(outcome, RejectionReason.None, weight, nis);
+        return new UpdateResult(outcome, RejectionReason.None, weight, nis, standardized);
     }
 
     /// <summary>

@@ -5,8 +5,8 @@ namespace Fleet.Grains.Registry;
 
 /// <summary>
 /// Collects "robot seen" marks from robot grains and writes them to the registry in one transaction per flush, so no
-/// grain turn waits on the database and a thousand robots deactivating at once cost one write. The host flushes it
-/// on a timer; disposing flushes what is left.
+/// grain turn waits on the database and a thousand robots deactivating at once cost one write. The host flushes it on a
+/// timer; disposing flushes what is left. (Last poses go through <see cref="RobotPoseLog"/>.)
 /// </summary>
 public sealed class RobotActivityLog(ISiteRegistry registry, IOptions<FleetGrainOptions> options, TimeProvider time) : IDisposable
 {
@@ -32,6 +32,7 @@ public sealed class RobotActivityLog(ISiteRegistry registry, IOptions<FleetGrain
             }
 
             registry.TouchRobots(batch, options.Value.DefaultMotion);
+
             return batch.Count;
         }
     }

@@ -14,6 +14,7 @@ public static class FleetInstrumentNames
     public const string IngestLatency = "fleet.ingest.latency";
     public const string Measurements = "fleet.measurements";
     public const string AnchorMeasurements = "fleet.anchor.measurements";
+    public const string AnchorFlagged = "fleet.anchor.flagged";
     public const string ActiveRobots = "fleet.robots.active";
     public const string PoseSubscribers = "fleet.pose.subscribers";
     public const string PoseUpdatesDropped = "fleet.pose.updates.dropped";
@@ -30,6 +31,7 @@ public static class FleetInstrumentNames
     public const string Anchor = "fleet.anchor";
     public const string Outcome = "fleet.outcome";
     public const string Reason = "fleet.rejection.reason";
+    public const string AnchorFlag = "fleet.anchor.flag";
 }
 
 /// <summary>
@@ -121,6 +123,11 @@ public sealed class FleetInstruments
     public void ObserveAnchors(Func<IEnumerable<Measurement<long>>> observe) =>
         Meter.CreateObservableCounter(FleetInstrumentNames.AnchorMeasurements, observe, "{measurement}",
             "Samples that involved an anchor, by site, anchor and outcome (used or rejected).");
+
+    /// <summary>1 for every (site, anchor, flag) that is raised now; flags that clear disappear from the next collection.</summary>
+    public void ObserveAnchorFlags(Func<IEnumerable<Measurement<int>>> observe) =>
+        Meter.CreateObservableGauge(FleetInstrumentNames.AnchorFlagged, observe, "{flag}",
+            "Anchors flagged by the health checks, by site, anchor and flag (silent, displaced, nlos_prone).");
 
     internal static string OutcomeName(int outcome) => OutcomeNames[outcome];
 

@@ -271,6 +271,11 @@ internal sealed class SiteGrpcService(
                 proto.LastHeardTime = ProtoTime.FromDateTime(heard);
             }
 
+            foreach (var finding in reading.Findings)
+            {
+                proto.Findings.Add(new AnchorHealthFinding { Flag = (AnchorHealthFlag)(int)finding.Flag, Reason = finding.Reason });
+            }
+
             response.Anchors.Add(proto);
         }
 

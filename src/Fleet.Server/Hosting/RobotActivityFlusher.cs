@@ -1,15 +1,18 @@
+using Fleet.Grains;
 using Fleet.Grains.Registry;
+using Microsoft.Extensions.Options;
 
 namespace Fleet.Server.Hosting;
 
-/// <summary>Writes robots' last-seen marks to the registry every few seconds (see <see cref="RobotActivityLog"/>).</summary>
-internal sealed partial class RobotActivityFlusher(RobotActivityLog log, ILogger<RobotActivityFlusher> logger) : BackgroundService
+/// <summary>
+/// Writes robots' last-seen marks and pose checkpoints to the registry every
+/// <see cref="FleetGrainOptions.RegistryFlushInterval"/> (see <see cref="RobotActivityLog"/>).
+/// </summary>
+internal sealed partial class RobotActivityFlusher(RobotActivityLog log, IOptions<FleetGrainOptions> options, ILogger<RobotActivityFlusher> logger) : BackgroundService
 {
-    public static readonly TimeSpan Period = TimeSpan.FromSeconds(5);
-
     protected override async Task ExecuteAsync(CancellationToken stoppingToken)
     {
-        using var timer = new PeriodicTimer(Period);
+        using var timer = new PeriodicTimer(options.Value.RegistryFlushInterval);
         try
         {
             while (await timer.WaitForNextTickAsync(stoppingToken))

@@ -11,7 +11,10 @@ namespace Fleet.Server.Recording;
 /// <c>{RecordingDirectory}/{site}/{UTC start time}.fleetrec</c>, holding every accepted-for-processing
 /// <see cref="MeasurementBatch"/> as a length-delimited protobuf message (varint length, then the message), in
 /// arrival order. Writing happens on a background task fed by a bounded queue, so ingest never waits on the disk;
-/// when the queue is full the batch is not recorded and <see cref="DroppedBatches"/> counts it.
+/// when the queue is full the batch is not recorded and <see cref="DroppedBatches"/> counts it. Files are only ever
+/// appended to and every server start writes new ones, so a killed server can leave at most one torn record at the
+/// end of each of its files; <see cref="RecordingReader"/> detects and skips it. The file is flushed to the operating
+/// system whenever the queue runs empty, so a killed process (not a power cut) loses only batches still queued.
 /// </summary>
 public sealed partial class IngestRecorder : IAsyncDisposable
 {
@@ -57,7 +60,7 @@ public sealed partial class IngestRecorder : IAsyncDisposable
         }
     }
 
-    /// <summary>Reads every batch of a recording file (for tests and offline tools).</summary>
+    /// <summary>Reads every batch of an intact recording (throws on a torn tail; see <see cref="RecordingReader"/> for damaged files).</summary>
     public static IEnumerable<MeasurementBatch> Read(Stream stream)
     {
         while (stream.Position < stream.Length)
@@ -78,7 +81,7 @@ public sealed partial class IngestRecorder : IAsyncDisposable
 
     private async Task WriteLoopAsync()
     {
-        var started = _time.GetUtcNow().ToString("yyyyMMdd'T'HHmmss'Z'", System.Globalization.CultureInfo.InvariantCulture);
+        var started = _time.GetUtcNow().ToString("yyyyMMdd'T'HHmmssfff'Z'", System.Globalization.CultureInfo.InvariantCulture);
         await foreach (var batch in _queue.Reader.ReadAllAsync().ConfigureAwait(false))
         {
             try
@@ -87,7 +90,7 @@ public sealed partial class IngestRecorder : IAsyncDisposable
                 {
                     var dir = Path.Combine(_directory!, site);
                     Directory.CreateDirectory(dir);
-                    return new FileStream(Path.Combine(dir, started + FileExtension), FileMode.Append, FileAccess.Write, FileShare.Read, 1 << 16);
+                    return CreateNewFile(dir, started);
                 });
                 batch.WriteDelimitedTo(file);
                 if (_queue.Reader.Count == 0)
@@ -99,6 +102,26 @@ public sealed partial class IngestRecorder : IAsyncDisposable
             {
                 Interlocked.Increment(ref _dropped);
                 LogWriteFailed(_logger, e, batch.SiteId);
+            }
+        }
+    }
+
+    /// <summary>
+    /// A file of its own (never appending behind a torn record another run left): a start time that is taken, e.g. by
+    /// a server restarted within the same millisecond, gets a counter.
+    /// </summary>
+    private static FileStream CreateNewFile(string directory, string started)
+    {
+        for (var attempt = 0; ; attempt++)
+        {
+            var name = attempt == 0 ? started : $"{started}-{attempt}";
+            try
+            {
+                return new FileStream(Path.Combine(directory, name + FileExtension), FileMode.CreateNew, FileAccess.Write, FileShare.Read, 1 << 16);
+            }
+            catch (IOException) when (attempt < 100 && File.Exists(Path.Combine(directory, name + FileExtension)))
+            {
+                // Taken: try the next name.
             }
         }
     }

@@ -10,7 +10,9 @@ using Microsoft.Data.Sqlite;
 namespace Fleet.Server.Registry;
 
 /// <summary>
-/// The site registry in one SQLite file (WAL journal). Anchor maps are stored as site-file JSON (DESIGN.md), so a
+/// The site registry in one SQLite file (WAL journal, <c>synchronous = FULL</c>: a write that returned is on disk and
+/// survives a killed process or a power cut; every multi-statement change is one <c>BEGIN IMMEDIATE</c> transaction,
+/// so a crash leaves it wholly done or not at all). Anchor maps are stored as site-file JSON (DESIGN.md), so a
 /// stored version can be exported and read by every offline command. Writes are serialised in-process so version numbers are
 /// assigned without races; reads use pooled connections. Times are stored as Unix milliseconds (UTC).
 /// </summary>
@@ -382,6 +384,9 @@ public sealed partial class SqliteSiteRegistry : ISiteRegistry, IDisposable
     {
         var db = new SqliteConnection(_connectionString);
         db.Open();
+        // Per connection (not stored in the file): in WAL mode FULL syncs the log at every commit, so a committed
+        // transaction survives power loss, not only a killed process (sqlite.org/pragma.html#pragma_synchronous).
+        Execute(db, "PRAGMA synchronous = FULL");
         return db;
     }
 
