@@ -1,4 +1,4 @@
-using Fleet.Server.Grpc;
+using Fleet.Server.Security;
 using Fleet.Server.Hosting;
 using Microsoft.Extensions.Options;
 
@@ -23,7 +23,7 @@ public static class FleetServerHost
 
         var options = (builder.Configuration.GetSection(FleetServerOptions.SectionName).Get<FleetServerOptions>() ?? new FleetServerOptions()).ResolvePorts();
         builder.Services.AddSingleton(Options.Create(options));
-        builder.AddFleetKestrel(options).AddFleetOrleans(options);
+        builder.AddFleetSecurity().AddFleetKestrel(options).AddFleetOrleans(options);
         builder.Services
             .AddFleetCore(builder.Configuration, options)
             .AddFleetGrpc(options)
@@ -67,12 +67,13 @@ public static class FleetServerHost
     /// <summary>The resolved options (actual ports) of a built application.</summary>
     public static FleetServerOptions GetOptions(WebApplication app) => app.Services.GetRequiredService<IOptions<FleetServerOptions>>().Value;
 
-    /// <summary>The address a gRPC client on this machine should use, e.g. http://127.0.0.1:50051.</summary>
+    /// <summary>The address a gRPC client on this machine should use, e.g. http://127.0.0.1:50051 (https with TLS).</summary>
     public static Uri GetGrpcAddress(WebApplication app)
     {
         var o = GetOptions(app);
         var host = o.ListenAddress is "localhost" or "*" or "0.0.0.0" or "::" ? "127.0.0.1" : o.ListenAddress;
-        return new Uri($"http://{(host.Contains(':', StringComparison.Ordinal) ? $"[{host}]" : host)}:{o.GrpcPort}");
+        var scheme = app.Services.GetRequiredService<FleetSecurityOptions>().Tls.IsConfigured ? "https" : "http";
+        return new Uri($"{scheme}://{(host.Contains(':', StringComparison.Ordinal) ? $"[{host}]" : host)}:{o.GrpcPort}");
     }
 
     private static bool IsAddressInUse(Exception? e)
@@ -103,10 +104,6 @@ public static class FleetServerHost
             app.UseOpenTelemetryPrometheusScrapingEndpoint(context => context.Connection.LocalPort == port && context.Request.Path == "/metrics");
         }
 
-        app.MapGrpcService<IngestGrpcService>();
-        app.MapGrpcService<PoseGrpcService>();
-        app.MapGrpcService<SiteGrpcService>();
-        app.MapGrpcHealthChecksService();
-        app.MapGrpcReflectionService();
+        app.UseFleetSecurity().MapFleetGrpcServices();
     }
 }

@@ -49,6 +49,8 @@ public sealed class ServerHarness : IAsyncDisposable
             ["Fleet:Server:SiloPort"] = "0",
             ["Fleet:Server:GatewayPort"] = "0",
             ["Logging:LogLevel:Default"] = "Warning",
+            // Tests of the main job run without credentials; security tests override this.
+            ["Fleet:Security:AllowAnonymous"] = "true",
         };
         foreach (var (key, value) in settings ?? new Dictionary<string, string?>())
         {

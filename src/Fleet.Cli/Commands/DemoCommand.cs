@@ -64,6 +64,9 @@ internal static class DemoCommand
             ["Fleet:Server:SiloPort"] = "0",
             ["Fleet:Server:GatewayPort"] = "0",
             ["Fleet:Server:DataDirectory"] = dataDir,
+            // Demo mode: loopback only, so it may run without credentials.
+            ["Fleet:Server:ListenAddress"] = "localhost",
+            ["Fleet:Security:AllowAnonymous"] = "true",
             ["Logging:LogLevel:Default"] = "Warning",
         }), cancellationToken: cancellationToken);
         var address = FleetServerHost.GetGrpcAddress(app);
