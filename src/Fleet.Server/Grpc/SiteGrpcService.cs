@@ -89,8 +89,8 @@ internal sealed class SiteGrpcService(
 
     public override async Task<PutAnchorMapResponse> PutAnchorMap(PutAnchorMapRequest request, ServerCallContext context)
     {
+        Authorize(context, FleetRole.Admin, request.SiteId);
         var violations = new Violations();
-        violations.SiteId("site_id", request.SiteId);
         if (request.Anchors.Count == 0)
         {
             violations.Add("anchors", "must list at least one anchor");
@@ -168,8 +168,9 @@ internal sealed class SiteGrpcService(
 
     public override async Task<UploadBiasModelResponse> UploadBiasModel(UploadBiasModelRequest request, ServerCallContext context)
     {
+        // Authorised before the model bytes are parsed: strangers' uploads cost no CPU.
+        Authorize(context, FleetRole.Admin, request.SiteId);
         var violations = new Violations();
-        violations.SiteId("site_id", request.SiteId);
         if (request.Description.Length > MaxDescriptionLength || request.Description.Any(c => char.IsControl(c) && c != '\n'))
         {
             violations.Add("description", $"must be at most {MaxDescriptionLength} characters, no control characters but line breaks");
@@ -355,8 +356,8 @@ internal sealed class SiteGrpcService(
         return Task.FromResult(response);
     }
 
-    /// <summary>Checks, in this order: the id's form (INVALID_ARGUMENT), the caller's role (PERMISSION_DENIED, so a stranger cannot probe which sites exist), existence (NOT_FOUND).</summary>
-    private SiteEntry RequireSite(ServerCallContext context, FleetRole role, string siteId)
+    /// <summary>The id's form (INVALID_ARGUMENT), then the caller's role on the site (PERMISSION_DENIED).</summary>
+    private void Authorize(ServerCallContext context, FleetRole role, string siteId)
     {
         if (!FleetIds.IsValidSiteId(siteId))
         {
@@ -364,7 +365,12 @@ internal sealed class SiteGrpcService(
         }
 
         access.Require(context, role, siteId);
+    }
 
+    /// <summary>Checks, in this order: the id's form (INVALID_ARGUMENT), the caller's role (PERMISSION_DENIED, so a stranger cannot probe which sites exist), existence (NOT_FOUND).</summary>
+    private SiteEntry RequireSite(ServerCallContext context, FleetRole role, string siteId)
+    {
+        Authorize(context, role, siteId);
         var site = registry.GetSite(siteId);
         if (site is null)
         {
