@@ -33,7 +33,8 @@ internal static class ServeCommand
             catch (Server.Security.InsecureConfigurationException e)
             {
                 // Secure by default: no credentials configured and nobody said anonymous access is intended.
-                throw new CliException(e.Message);
+                Console.Error.WriteLine($"fleet: {e.Message}");
+                return 2;
             }
         });
         return command;
