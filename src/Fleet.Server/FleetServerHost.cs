@@ -1,5 +1,5 @@
-using Fleet.Server.Security;
 using Fleet.Server.Hosting;
+using Fleet.Server.Security;
 using Microsoft.Extensions.Options;
 
 namespace Fleet.Server;

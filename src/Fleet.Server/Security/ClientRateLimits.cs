@@ -82,12 +82,12 @@ public sealed class ClientRateLimits : IDisposable
     /// <summary>A token bucket holding <paramref name="burst"/> tokens, refilled at <paramref name="perSecond"/>.</summary>
     public static TokenBucketRateLimiterOptions BucketOptions(int perSecond, int burst, int queue) => new()
     {
-            TokenLimit = Math.Max(1, Math.Max(burst, perSecond / 10)),
-            // Refill ten times a second (once per token for slow rates) so a client is not held up for a whole second.
-            TokensPerPeriod = perSecond >= 10 ? perSecond / 10 : 1,
-            ReplenishmentPeriod = perSecond >= 10 ? TimeSpan.FromMilliseconds(100) : TimeSpan.FromSeconds(1.0 / perSecond),
-            AutoReplenishment = true,
-            QueueLimit = queue,
-            QueueProcessingOrder = QueueProcessingOrder.OldestFirst,
+        TokenLimit = Math.Max(1, Math.Max(burst, perSecond / 10)),
+        // Refill ten times a second (once per token for slow rates) so a client is not held up for a whole second.
+        TokensPerPeriod = perSecond >= 10 ? perSecond / 10 : 1,
+        ReplenishmentPeriod = perSecond >= 10 ? TimeSpan.FromMilliseconds(100) : TimeSpan.FromSeconds(1.0 / perSecond),
+        AutoReplenishment = true,
+        QueueLimit = queue,
+        QueueProcessingOrder = QueueProcessingOrder.OldestFirst,
     };
 }
