@@ -105,7 +105,8 @@ public static class FleetServiceCollectionExtensions
             })
             .WithMetrics(metrics =>
             {
-                metrics.AddMeter(FleetInstrumentNames.MeterName, "Microsoft.AspNetCore.Hosting", "Microsoft.AspNetCore.Server.Kestrel", "Microsoft.Orleans");
+                metrics.AddMeter(FleetInstrumentNames.MeterName, "Microsoft.AspNetCore.Hosting", "Microsoft.AspNetCore.Server.Kestrel", "Microsoft.Orleans",
+                    "Microsoft.AspNetCore.RateLimiting");
                 if (options.MetricsPort > 0)
                 {
                     metrics.AddPrometheusExporter();

@@ -43,6 +43,12 @@ public sealed class RateLimitTests
         Assert.Equal(StatusCode.OK, other);
         Assert.All(probes, p => Assert.Equal(HealthCheckResponse.Types.ServingStatus.Serving, p));
 
+        // ASP.NET Core's built-in rate-limiting meter counts the refusals (aspnetcore.rate_limiting.requests with
+        // aspnetcore.rate_limiting.result = global_limiter; ASP.NET Core built-in metrics docs, from memory).
+        var metrics = await server.ScrapeMetricsAsync();
+        Assert.Contains(metrics.Split('\n'), line => line.StartsWith("aspnetcore_rate_limiting_requests", StringComparison.Ordinal)
+            && line.Contains("global_limiter", StringComparison.Ordinal));
+
         // The stream's batches beyond the message rate wait for tokens; every one is still acknowledged, in order.
         using var call = server.Ingest.StreamMeasurements(SecureServer.As("gateway-a"), Deadline());
         for (ulong id = 1; id <= 3; id++)
