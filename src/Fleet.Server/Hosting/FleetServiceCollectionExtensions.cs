@@ -29,10 +29,15 @@ public static class FleetServiceCollectionExtensions
     /// <summary>Kestrel: gRPC on an HTTP/2-only port (TLS when Fleet:Security:Tls is set); /metrics on a separate HTTP/1.1 port.</summary>
     public static WebApplicationBuilder AddFleetKestrel(this WebApplicationBuilder builder, FleetServerOptions options)
     {
-        var certificate = Security.FleetTls.Load(builder.Configuration.ReadSecurityOptions().Tls);
+        var tls = builder.Configuration.ReadSecurityOptions().Tls;
+        var certificate = Security.FleetTls.Load(tls);
         builder.WebHost.ConfigureKestrel(kestrel =>
         {
             Listen(kestrel, options.ListenAddress, options.GrpcPort, HttpProtocols.Http2, certificate);
+            if (certificate is not null && tls.PlaintextHealthPort > 0)
+            {
+                Listen(kestrel, options.ListenAddress, tls.PlaintextHealthPort, HttpProtocols.Http2);
+            }
             if (options.MetricsPort > 0)
             {
                 Listen(kestrel, options.ListenAddress, options.MetricsPort, HttpProtocols.Http1);

@@ -84,6 +84,23 @@ public static class FleetSecurityHosting
     /// <summary>Authentication, authorisation and rate limiting in the request pipeline (before the endpoints).</summary>
     public static WebApplication UseFleetSecurity(this WebApplication app)
     {
+        var tls = app.Services.GetRequiredService<FleetSecurityOptions>().Tls;
+        if (tls.IsConfigured && tls.PlaintextHealthPort > 0)
+        {
+            // The plaintext probe port answers health checks and nothing else.
+            var probePort = tls.PlaintextHealthPort;
+            app.Use((context, next) =>
+            {
+                if (context.Connection.LocalPort == probePort && !context.Request.Path.StartsWithSegments("/grpc.health.v1.Health"))
+                {
+                    context.Response.StatusCode = StatusCodes.Status404NotFound;
+                    return Task.CompletedTask;
+                }
+
+                return next(context);
+            });
+        }
+
         app.UseAuthentication();
         app.UseAuthorization();
         app.UseRateLimiter();

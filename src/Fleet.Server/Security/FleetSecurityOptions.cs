@@ -42,6 +42,12 @@ public sealed class TlsOptions
     /// <summary>Password of the PFX file or of an encrypted PEM key.</summary>
     public string? Password { get; set; }
 
+    /// <summary>
+    /// With TLS on: a plaintext HTTP/2 port serving only grpc.health.v1 (Kubernetes gRPC probes speak neither TLS nor
+    /// credentials). 0 or negative: none.
+    /// </summary>
+    public int PlaintextHealthPort { get; set; }
+
     public bool IsConfigured => !string.IsNullOrWhiteSpace(CertificatePath);
 }
 

@@ -69,10 +69,18 @@ public sealed class SecureServer : IAsyncLifetime
         var settings = KeySettings();
         settings["Fleet:Security:Tls:CertificatePath"] = Certificates.CertificatePath;
         settings["Fleet:Security:Tls:KeyPath"] = Certificates.KeyPath;
+        settings["Fleet:Security:Tls:PlaintextHealthPort"] = FreePort().ToString(System.Globalization.CultureInfo.InvariantCulture);
         settings["Fleet:Security:Jwt:Issuer"] = Issuer;
         settings["Fleet:Security:Jwt:Audience"] = Audience;
         settings["Fleet:Security:Jwt:SigningKey"] = Convert.ToBase64String(SigningKey);
         Server = await ServerHarness.StartAsync(Path.Combine(_directory, "data"), settings, new GrpcChannelOptions { HttpHandler = Certificates.ClientHandler() });
+    }
+
+    private static int FreePort()
+    {
+        using var listener = new System.Net.Sockets.TcpListener(System.Net.IPAddress.Loopback, 0);
+        listener.Start();
+        return ((System.Net.IPEndPoint)listener.LocalEndpoint).Port;
     }
 
     public async Task DisposeAsync()

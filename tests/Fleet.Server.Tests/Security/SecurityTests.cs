@@ -4,6 +4,7 @@ using Grpc.Core;
 using Grpc.Health.V1;
 using Grpc.Net.Client;
 using Microsoft.Extensions.Configuration;
+using Microsoft.Extensions.DependencyInjection;
 
 namespace Fleet.Server.Tests.Security;
 
@@ -132,6 +133,21 @@ public sealed class SecurityTests(SecureServer shared) : IClassFixture<SecureSer
         Assert.Equal(StatusCode.Unauthenticated, forged);
         // Probes carry no credentials (Kubernetes gRPC probes: no TLS or auth options), so health is anonymous.
         Assert.Equal(HealthCheckResponse.Types.ServingStatus.Serving, health.Status);
+    }
+
+    [Fact]
+    public async Task PlaintextHealthPort_AnswersHealthOnly()
+    {
+        var port = Server.App.Services.GetRequiredService<FleetSecurityOptions>().Tls.PlaintextHealthPort;
+        using var probe = GrpcChannel.ForAddress($"http://127.0.0.1:{port}");
+
+        var health = await new Health.HealthClient(probe).CheckAsync(new HealthCheckRequest { Service = "liveness" }, deadline: Deadline());
+        var other = await CodeOf(() => new SiteService.SiteServiceClient(probe).ListSitesAsync(new ListSitesRequest(), SecureServer.As("admin-all"), Deadline()).ResponseAsync);
+
+        // Kubernetes gRPC probes carry no TLS or credentials (Kubernetes docs, configure liveness/readiness probes).
+        Assert.Equal(HealthCheckResponse.Types.ServingStatus.Serving, health.Status);
+        // HTTP 404 maps to UNIMPLEMENTED (grpc/grpc doc/http-grpc-status-mapping.md).
+        Assert.Equal(StatusCode.Unimplemented, other);
     }
 
     [Fact]
