@@ -31,6 +31,12 @@ public static class FleetSecurityHosting
     public static WebApplicationBuilder AddFleetSecurity(this WebApplicationBuilder builder)
     {
         var security = builder.Configuration.ReadSecurityOptions();
+        var jwt = security.Jwt;
+        if (!jwt.IsConfigured && !string.IsNullOrWhiteSpace(jwt.Issuer + jwt.SigningKey + jwt.PublicKeyPath + jwt.Audience))
+        {
+            throw new InvalidOperationException($"{FleetSecurityOptions.SectionName}:Jwt needs Issuer and one of SigningKey or PublicKeyPath");
+        }
+
         if (!security.HasAuthentication && !security.AllowAnonymous)
         {
             throw new InsecureConfigurationException(NoAuthMessage);
