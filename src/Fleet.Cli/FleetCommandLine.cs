@@ -20,6 +20,7 @@ internal static class FleetCommandLine
         root.Subcommands.Add(BiasCommand.Create());
         root.Subcommands.Add(BenchCommand.Create());
         root.Subcommands.Add(SiteCommand.Create());
+        root.Subcommands.Add(AuditCommand.Create());
         return root;
     }
 

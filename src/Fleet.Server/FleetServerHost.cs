@@ -1,6 +1,6 @@
-using Fleet.Server.Grpc;
 using Fleet.Server.Hosting;
 using Fleet.Server.LiveView;
+using Fleet.Server.Security;
 using Microsoft.Extensions.Options;
 
 namespace Fleet.Server;
@@ -24,7 +24,7 @@ public static class FleetServerHost
 
         var options = (builder.Configuration.GetSection(FleetServerOptions.SectionName).Get<FleetServerOptions>() ?? new FleetServerOptions()).ResolvePorts();
         builder.Services.AddSingleton(Options.Create(options));
-        builder.AddFleetKestrel(options).AddFleetOrleans(options).AddFleetLiveView(options);
+        builder.AddFleetSecurity().AddFleetKestrel(options).AddFleetOrleans(options).AddFleetLiveView(options);
         builder.Services
             .AddFleetCore(builder.Configuration, options)
             .AddFleetGrpc(options)
@@ -68,12 +68,13 @@ public static class FleetServerHost
     /// <summary>The resolved options (actual ports) of a built application.</summary>
     public static FleetServerOptions GetOptions(WebApplication app) => app.Services.GetRequiredService<IOptions<FleetServerOptions>>().Value;
 
-    /// <summary>The address a gRPC client on this machine should use, e.g. http://127.0.0.1:50051.</summary>
+    /// <summary>The address a gRPC client on this machine should use, e.g. http://127.0.0.1:50051 (https with TLS).</summary>
     public static Uri GetGrpcAddress(WebApplication app)
     {
         var o = GetOptions(app);
         var host = o.ListenAddress is "localhost" or "*" or "0.0.0.0" or "::" ? "127.0.0.1" : o.ListenAddress;
-        return new Uri($"http://{(host.Contains(':', StringComparison.Ordinal) ? $"[{host}]" : host)}:{o.GrpcPort}");
+        var scheme = app.Services.GetRequiredService<FleetSecurityOptions>().Tls.IsConfigured ? "https" : "http";
+        return new Uri($"{scheme}://{(host.Contains(':', StringComparison.Ordinal) ? $"[{host}]" : host)}:{o.GrpcPort}");
     }
 
     private static bool IsAddressInUse(Exception? e)
@@ -104,11 +105,7 @@ public static class FleetServerHost
             app.UseOpenTelemetryPrometheusScrapingEndpoint(context => context.Connection.LocalPort == port && context.Request.Path == "/metrics");
         }
 
-        app.MapGrpcService<IngestGrpcService>();
-        app.MapGrpcService<PoseGrpcService>();
-        app.MapGrpcService<SiteGrpcService>();
-        app.MapGrpcHealthChecksService();
-        app.MapGrpcReflectionService();
+        app.UseFleetSecurity().MapFleetGrpcServices();
         app.MapFleetLiveView();
     }
 }

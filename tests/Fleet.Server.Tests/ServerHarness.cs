@@ -10,12 +10,12 @@ namespace Fleet.Server.Tests;
 /// </summary>
 public sealed class ServerHarness : IAsyncDisposable
 {
-    private ServerHarness(WebApplication app, string dataDirectory)
+    private ServerHarness(WebApplication app, string dataDirectory, GrpcChannelOptions? channelOptions)
     {
         App = app;
         DataDirectory = dataDirectory;
         Options = FleetServerHost.GetOptions(app);
-        Channel = GrpcChannel.ForAddress(FleetServerHost.GetGrpcAddress(app));
+        Channel = GrpcChannel.ForAddress(FleetServerHost.GetGrpcAddress(app), channelOptions ?? new GrpcChannelOptions());
         Sites = new SiteService.SiteServiceClient(Channel);
         Ingest = new IngestService.IngestServiceClient(Channel);
         Poses = new PoseService.PoseServiceClient(Channel);
@@ -37,7 +37,7 @@ public sealed class ServerHarness : IAsyncDisposable
 
     public static string NewDataDirectory() => Path.Combine(Path.GetTempPath(), "fleet-server-tests", Guid.NewGuid().ToString("N"));
 
-    public static async Task<ServerHarness> StartAsync(string? dataDirectory = null, IDictionary<string, string?>? settings = null)
+    public static async Task<ServerHarness> StartAsync(string? dataDirectory = null, IDictionary<string, string?>? settings = null, GrpcChannelOptions? channelOptions = null)
     {
         dataDirectory ??= NewDataDirectory();
         var config = new Dictionary<string, string?>
@@ -50,6 +50,8 @@ public sealed class ServerHarness : IAsyncDisposable
             ["Fleet:Server:SiloPort"] = "0",
             ["Fleet:Server:GatewayPort"] = "0",
             ["Logging:LogLevel:Default"] = "Warning",
+            // Tests of the main job run without credentials; security tests override this.
+            ["Fleet:Security:AllowAnonymous"] = "true",
         };
         foreach (var (key, value) in settings ?? new Dictionary<string, string?>())
         {
@@ -57,7 +59,7 @@ public sealed class ServerHarness : IAsyncDisposable
         }
 
         var app = await FleetServerHost.StartAsync([], builder => builder.Configuration.AddInMemoryCollection(config)).WaitAsync(TimeSpan.FromSeconds(90));
-        return new ServerHarness(app, dataDirectory);
+        return new ServerHarness(app, dataDirectory, channelOptions);
     }
 
     public async Task<string> ScrapeMetricsAsync()

@@ -50,6 +50,8 @@ internal sealed class ServerProcess : IAsyncDisposable
                      $"--Fleet:Server:MetricsPort={ports[1]}",
                      $"--Fleet:Server:SiloPort={ports[2]}",
                      $"--Fleet:Server:GatewayPort={ports[3]}",
+                     "--Fleet:LiveView:Port=-1",
+                     "--Fleet:Security:AllowAnonymous=true",
                      "--Logging:LogLevel:Default=Warning",
                  }.Concat(extraArguments))
         {

@@ -72,6 +72,7 @@ def start_server(dll, name, work, postgres, redis=None):
         "Fleet__Server__GrpcPort": str(ports["grpc"]),
         "Fleet__Server__MetricsPort": str(ports["metrics"]),
         "Fleet__LiveView__Port": "0",
+        "Fleet__Security__AllowAnonymous": "true",
         "Fleet__Server__SiloPort": str(ports["silo"]),
         "Fleet__Server__GatewayPort": str(ports["gateway"]),
         "Fleet__Server__DataDirectory": os.path.join(work, name),

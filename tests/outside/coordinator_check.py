@@ -70,7 +70,7 @@ def main():
     ports = {k: free_port() for k in ("grpc", "metrics", "silo", "gateway")}
     env = dict(os.environ, Fleet__Server__GrpcPort=str(ports["grpc"]), Fleet__Server__MetricsPort=str(ports["metrics"]),
                Fleet__Server__SiloPort=str(ports["silo"]), Fleet__Server__GatewayPort=str(ports["gateway"]),
-               Fleet__Server__DataDirectory=os.path.join(work, "data"), Fleet__LiveView__Port="0",
+               Fleet__Server__DataDirectory=os.path.join(work, "data"), Fleet__LiveView__Port="0", Fleet__Security__AllowAnonymous="true",
                Logging__LogLevel__Default="Warning")
     dll = os.path.join(REPO, "src", "Fleet.Server", "bin", "Release", "net10.0", "Fleet.Server.dll")
     server = subprocess.Popen(["dotnet", dll], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)

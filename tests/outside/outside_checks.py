@@ -203,7 +203,9 @@ def main():
             ["dotnet", args.server_dll, f"--Fleet:Server:GrpcPort={grpc_port}", f"--Fleet:Server:MetricsPort={metrics_port}",
              f"--Fleet:Server:SiloPort={free_port()}", f"--Fleet:Server:GatewayPort={free_port()}", "--Fleet:LiveView:Port=0",
              "--Fleet:Server:ListenAddress=127.0.0.1", f"--Fleet:Server:DataDirectory={os.path.join(work, 'data')}",
-             "--Logging:LogLevel:Default=Warning"],
+             "--Logging:LogLevel:Default=Warning",
+             # Loopback only; credentials are checked by security_checks.py.
+             "--Fleet:Security:AllowAnonymous=true"],
             stdout=open(os.path.join(work, "server.log"), "w"), stderr=subprocess.STDOUT)
         processes.append(server)
 

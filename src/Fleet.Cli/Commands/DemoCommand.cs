@@ -82,6 +82,9 @@ internal static class DemoCommand
             ["Fleet:Server:DataDirectory"] = dataDir,
             ["Fleet:LiveView:Port"] = viewPort.ToString(CultureInfo.InvariantCulture),
             [$"Fleet:LiveView:SiteFiles:{SiteId}"] = siteFile,
+            // Demo mode: loopback only, so it may run without credentials.
+            ["Fleet:Server:ListenAddress"] = "localhost",
+            ["Fleet:Security:AllowAnonymous"] = "true",
             ["Logging:LogLevel:Default"] = "Warning",
         }), cancellationToken: cancellationToken);
         var address = FleetServerHost.GetGrpcAddress(app);

@@ -1,8 +1,8 @@
 using System.CommandLine;
 using System.Globalization;
 using Fleet.Contracts.V1;
+using Fleet.Server.Clients;
 using Grpc.Core;
-using Grpc.Net.Client;
 
 namespace Fleet.Cli.Commands;
 
@@ -11,16 +11,17 @@ internal static class WatchCommand
 {
     public static Command Create()
     {
-        var server = new Option<Uri>("--server") { Description = "Server gRPC address", DefaultValueFactory = _ => new Uri("http://127.0.0.1:50051") };
+        var server = ServerOption();
         var site = new Option<string>("--site") { Description = "Site id", Required = true };
         var robots = new Option<string[]>("--robot") { Description = "Only these robots (repeatable)" };
         var rate = new Option<double>("--rate") { Description = "At most this many updates per robot per second (0: all)", DefaultValueFactory = _ => 2 };
         var count = new Option<int>("--count") { Description = "Stop after this many updates (0: until Ctrl+C)" };
-        var command = new Command("watch", "Subscribe to a running server and print pose updates.") { server, site, robots, rate, count };
+        var (apiKey, caFile) = ConnectionOptions();
+        var command = new Command("watch", "Subscribe to a running server and print pose updates.") { server, site, robots, rate, count, apiKey, caFile };
         command.SetAction(async (parse, cancellationToken) =>
         {
-            using var channel = GrpcChannel.ForAddress(parse.GetValue(server)!);
-            var client = new PoseService.PoseServiceClient(channel);
+            using var connection = Connect(parse, server, apiKey, caFile);
+            var client = new PoseService.PoseServiceClient(connection.CallInvoker);
             var request = new WatchPosesRequest { SiteId = parse.GetValue(site)!, MaxRatePerRobotHz = parse.GetValue(rate) };
             request.RobotIds.AddRange(parse.GetValue(robots) ?? []);
             var limit = parse.GetValue(count);
@@ -53,6 +54,34 @@ internal static class WatchCommand
         });
         return command;
     }
+
+    /// <summary>--server: an absolute http:// or https:// address (System.CommandLine has no built-in Uri parser).</summary>
+    public static Option<Uri> ServerOption() => new("--server")
+    {
+        Description = "Server gRPC address (https:// when the server has TLS)",
+        DefaultValueFactory = _ => new Uri("http://127.0.0.1:50051"),
+        CustomParser = result =>
+        {
+            var text = result.Tokens.Count == 1 ? result.Tokens[0].Value : string.Empty;
+            if (Uri.TryCreate(text, UriKind.Absolute, out var uri) && (uri.Scheme == Uri.UriSchemeHttp || uri.Scheme == Uri.UriSchemeHttps))
+            {
+                return uri;
+            }
+
+            result.AddError($"--server: '{text}' is not an http:// or https:// address");
+            return null;
+        },
+    };
+
+    /// <summary>--api-key (default: the FLEET_API_KEY variable) and --ca-file, shared by commands that call a server.</summary>
+    public static (Option<string?> ApiKey, Option<string?> CaFile) ConnectionOptions() => (
+        new Option<string?>("--api-key") { Description = $"API key sent as x-api-key (default: ${FleetClientConnection.ApiKeyVariable})" },
+        new Option<string?>("--ca-file") { Description = "PEM CA certificate to trust for an https server (default: the system roots)" });
+
+    public static FleetClientConnection Connect(ParseResult parse, Option<Uri> server, Option<string?> apiKey, Option<string?> caFile) => new(
+        parse.GetValue(server)!,
+        parse.GetValue(apiKey) ?? Environment.GetEnvironmentVariable(FleetClientConnection.ApiKeyVariable),
+        parse.GetValue(caFile));
 
     /// <summary>One pose as a line: time, robot, state, tag position, 1-σ horizontal, yaw, rejection ratio.</summary>
     public static string Format(Pose pose) => string.Create(CultureInfo.InvariantCulture,

@@ -410,6 +410,10 @@ public static class IngestBenchmark
             ["Fleet:Server:SiloPort"] = "0",
             ["Fleet:Server:GatewayPort"] = "0",
             ["Fleet:Server:NoopIngest"] = noop ? "true" : "false",
+            // Loopback only, one client: no credentials, and no rate limit in the way of the measured throughput.
+            ["Fleet:Security:AllowAnonymous"] = "true",
+            ["Fleet:Security:RateLimit:CallsPerSecond"] = "0",
+            ["Fleet:Security:RateLimit:StreamMessagesPerSecond"] = "0",
             ["Logging:LogLevel:Default"] = "Warning",
 
             // Under full load the silo watchdog reports CPU starvation, which is the point of the exercise.

@@ -100,6 +100,8 @@ public static class SoakBenchmark
             ["Fleet:Server:MetricsPort"] = "-1",
             ["Fleet:Server:SiloPort"] = "0",
             ["Fleet:Server:GatewayPort"] = "0",
+            ["Fleet:LiveView:Port"] = "-1",
+            ["Fleet:Security:AllowAnonymous"] = "true",
             ["Logging:LogLevel:Default"] = "Warning",
             ["Logging:LogLevel:Orleans.Runtime.Watchdog"] = "Error",
         }), cancellationToken: cancellationToken);

@@ -3,6 +3,8 @@ using Fleet.Contracts.V1;
 using Fleet.Grains;
 using Fleet.Grains.Telemetry;
 using Fleet.Server.Recording;
+using Fleet.Server.Security;
+using Fleet.Server.Validation;
 using Grpc.Core;
 using Microsoft.Extensions.Options;
 using SampleKind = Fleet.Contracts.V1.SampleKind;
@@ -18,6 +20,10 @@ internal sealed class IngestGrpcService(
     SiteDirectory sites,
     FleetInstruments instruments,
     IngestRecorder recorder,
+    IngestBatchValidator validator,
+    ActiveAnchorMaps anchorMaps,
+    FleetAccess access,
+    ClientRateLimits rateLimits,
     IOptions<FleetServerOptions> options) : IngestService.IngestServiceBase
 {
     /// <summary>At most this many rejected samples are itemised per acknowledgement.</summary>
@@ -30,7 +36,10 @@ internal sealed class IngestGrpcService(
     {
         await foreach (var request in requestStream.ReadAllAsync(context.CancellationToken))
         {
-            Validate(request.Batch, "batch");
+            // The call-rate limiter counts calls, not messages: each batch of a stream takes its own permit.
+            await rateLimits.AcquireStreamMessageAsync(context);
+            validator.ValidateStructure(request.Batch, "batch");
+            access.Require(context, FleetRole.Ingest, request.Batch.SiteId);
             var ack = await IngestAsync(request.Batch);
             await responseStream.WriteAsync(new StreamMeasurementsResponse { Ack = ack });
         }
@@ -38,7 +47,8 @@ internal sealed class IngestGrpcService(
 
     public override async Task<SubmitMeasurementsResponse> SubmitMeasurements(SubmitMeasurementsRequest request, ServerCallContext context)
     {
-        Validate(request.Batch, "batch");
+        validator.ValidateStructure(request.Batch, "batch");
+        access.Require(context, FleetRole.Ingest, request.Batch.SiteId);
         if (!sites.Exists(request.Batch.SiteId))
         {
             GrpcErrors.ThrowNotFound($"site '{request.Batch.SiteId}' does not exist");
@@ -66,25 +76,33 @@ internal sealed class IngestGrpcService(
             recorder.Record(batch);
         }
 
-        var results = new Task<RobotBatchResult>[batch.Robots.Count];
-        for (var k = 0; k < batch.Robots.Count; k++)
+        var screened = validator.Screen(batch, siteExists ? anchorMaps.Get(batch.SiteId) : null, received);
+        var results = new Task<RobotBatchResult>?[screened.Length];
+        Span<int> rejectedHere = stackalloc int[RobotBatchResult.ReasonCount];
+        for (var k = 0; k < screened.Length; k++)
         {
-            var samples = batch.Robots[k];
-            var robotBatch = ToRobotBatch(samples, received);
-            if (siteExists && FleetIds.IsValidId(samples.RobotId))
+            var robot = screened[k];
+            if (!siteExists)
             {
-                results[k] = grains.GetGrain<IRobotGrain>(GrainKeys.Robot(batch.SiteId, samples.RobotId)).Ingest(robotBatch);
-                continue;
+                // Nothing of an unknown site reaches a grain: every sample the screening passed is rejected for the site.
+                robot = screened[k] = ScreenedRobot.RejectAll(batch.Robots[k], SampleRejectionReason.UnknownSite, received);
             }
 
             // Rejected before reaching a grain, so counted here.
-            var rejected = RobotBatchResult.RejectAll(robotBatch, siteExists ? SampleRejectionReason.InvalidRobot : SampleRejectionReason.UnknownSite);
-            instruments.RecordMeasurements(batch.SiteId, null, 0, 0, 0, rejected.RejectedByReason);
-            results[k] = Task.FromResult(rejected);
+            foreach (var item in robot.Rejections)
+            {
+                rejectedHere[(int)item.Reason]++;
+            }
+
+            if (!robot.IsEmpty)
+            {
+                results[k] = grains.GetGrain<IRobotGrain>(GrainKeys.Robot(batch.SiteId, robot.RobotId)).Ingest(robot.Batch);
+            }
         }
 
-        await Task.WhenAll(results);
-        var ack = ToAck(batch, results);
+        instruments.RecordMeasurements(batch.SiteId, null, 0, 0, 0, rejectedHere);
+        await Task.WhenAll(results.OfType<Task<RobotBatchResult>>());
+        var ack = ToAck(batch, screened, results);
         activity?.SetTag("fleet.batch.accepted", ack.Accepted + ack.DownWeighted);
         activity?.SetTag("fleet.batch.rejected", ack.Rejected);
         return ack;
@@ -101,66 +119,26 @@ internal sealed class IngestGrpcService(
         return ack;
     }
 
-    private static void Validate(MeasurementBatch? batch, string field)
-    {
-        if (batch is null)
-        {
-            GrpcErrors.ThrowInvalidArgument(field, "is required");
-        }
-
-        var violations = new Violations();
-        violations.SiteId($"{field}.site_id", batch.SiteId);
-        violations.ThrowIfAny();
-    }
-
-    private static RobotBatch ToRobotBatch(RobotSamples samples, long received)
-    {
-        var n = samples.Tdoa.Count;
-        var times = new double[n];
-        var a = new string[n];
-        var b = new string[n];
-        var values = new double[n];
-        for (var i = 0; i < n; i++)
-        {
-            var s = samples.Tdoa[i];
-            times[i] = ProtoTime.ToSeconds(s.SampleTime);
-            a[i] = s.AnchorA;
-            b[i] = s.AnchorB;
-            values[i] = s.DistanceDifference;
-        }
-
-        var m = samples.Odometry.Count;
-        var odometryTimes = new double[m];
-        var speeds = new double[m];
-        var yawRates = new double[m];
-        for (var j = 0; j < m; j++)
-        {
-            var s = samples.Odometry[j];
-            odometryTimes[j] = ProtoTime.ToSeconds(s.SampleTime);
-            speeds[j] = s.ForwardSpeed;
-            yawRates[j] = s.YawRate;
-        }
-
-        return new RobotBatch
-        {
-            TdoaTimes = times,
-            AnchorA = a,
-            AnchorB = b,
-            DistanceDifferences = values,
-            OdometryTimes = odometryTimes,
-            ForwardSpeeds = speeds,
-            YawRates = yawRates,
-            ReceivedTimestamp = received,
-        };
-    }
-
-    private static BatchAck ToAck(MeasurementBatch batch, Task<RobotBatchResult>[] results)
+    private static BatchAck ToAck(MeasurementBatch batch, ScreenedRobot[] screened, Task<RobotBatchResult>?[] results)
     {
         var ack = new BatchAck { BatchId = batch.BatchId };
         Span<int> byReason = stackalloc int[RobotBatchResult.ReasonCount];
-        for (var k = 0; k < results.Length; k++)
+        for (var k = 0; k < screened.Length; k++)
         {
-            var r = results[k].Result;
+            var robot = screened[k];
+            foreach (var item in robot.Rejections)
+            {
+                ack.Rejected++;
+                byReason[(int)item.Reason]++;
+                AddRejection(ack, robot.RobotId, item.Kind, item.Index, item.Reason);
+            }
+
+            if (results[k] is not { } task)
+            {
+                continue;
+            }
+
+            var r = task.Result;
             ack.Accepted += (uint)r.Accepted;
             ack.DownWeighted += (uint)r.DownWeighted;
             ack.Buffered += (uint)r.Buffered;
@@ -173,19 +151,7 @@ internal sealed class IngestGrpcService(
             ack.RejectionsTruncated |= r.RejectionsTruncated;
             foreach (var item in r.Rejections)
             {
-                if (ack.Rejections.Count >= MaxItemisedRejections)
-                {
-                    ack.RejectionsTruncated = true;
-                    break;
-                }
-
-                ack.Rejections.Add(new SampleRejection
-                {
-                    RobotId = batch.Robots[k].RobotId,
-                    Kind = item.Kind == Grains.SampleKind.Tdoa ? SampleKind.Tdoa : SampleKind.Odometry,
-                    Index = (uint)item.Index,
-                    Reason = (RejectionReason)(int)item.Reason,
-                });
+                AddRejection(ack, robot.RobotId, item.Kind, robot.OriginalIndex(item.Kind, item.Index), item.Reason);
             }
         }
 
@@ -198,5 +164,22 @@ internal sealed class IngestGrpcService(
         }
 
         return ack;
+    }
+
+    private static void AddRejection(BatchAck ack, string robotId, Grains.SampleKind kind, int index, SampleRejectionReason reason)
+    {
+        if (ack.Rejections.Count >= MaxItemisedRejections)
+        {
+            ack.RejectionsTruncated = true;
+            return;
+        }
+
+        ack.Rejections.Add(new SampleRejection
+        {
+            RobotId = robotId,
+            Kind = kind == Grains.SampleKind.Tdoa ? SampleKind.Tdoa : SampleKind.Odometry,
+            Index = (uint)index,
+            Reason = (RejectionReason)(int)reason,
+        });
     }
 }

@@ -1,14 +1,21 @@
 using Fleet.Contracts.V1;
 using Fleet.Grains;
 using Fleet.Grains.Streaming;
+using Fleet.Server.Security;
+using Fleet.Server.Validation;
 using Grpc.Core;
 using Microsoft.Extensions.Options;
 
 namespace Fleet.Server.Grpc;
 
 /// <summary>Latest pose, pose streams and fleet snapshots. Streams read from the silo's <see cref="PoseHub"/>.</summary>
-internal sealed class PoseGrpcService(IGrainFactory grains, SiteDirectory sites, PoseHub hub, IOptions<FleetServerOptions> options)
-    : PoseService.PoseServiceBase
+internal sealed class PoseGrpcService(
+    IGrainFactory grains,
+    SiteDirectory sites,
+    PoseHub hub,
+    FleetAccess access,
+    FleetValidationOptions limits,
+    IOptions<FleetServerOptions> options) : PoseService.PoseServiceBase
 {
     public override async Task<GetPoseResponse> GetPose(GetPoseRequest request, ServerCallContext context)
     {
@@ -16,6 +23,7 @@ internal sealed class PoseGrpcService(IGrainFactory grains, SiteDirectory sites,
         violations.SiteId("site_id", request.SiteId);
         violations.Id("robot_id", request.RobotId);
         violations.ThrowIfAny();
+        access.Require(context, FleetRole.Read, request.SiteId);
         RequireSite(request.SiteId);
 
         var pose = await grains.GetGrain<IRobotGrain>(GrainKeys.Robot(request.SiteId, request.RobotId)).GetLatestPose();
@@ -30,6 +38,7 @@ internal sealed class PoseGrpcService(IGrainFactory grains, SiteDirectory sites,
     public override async Task WatchPoses(WatchPosesRequest request, IServerStreamWriter<WatchPosesResponse> responseStream, ServerCallContext context)
     {
         var filter = ToFilter(request);
+        access.Require(context, FleetRole.Read, request.SiteId);
         RequireSite(request.SiteId);
         var o = options.Value;
         using var subscription = hub.Subscribe(filter, o.SubscriberQueueCapacity);
@@ -77,8 +86,14 @@ internal sealed class PoseGrpcService(IGrainFactory grains, SiteDirectory sites,
     {
         var violations = new Violations();
         violations.SiteId("site_id", request.SiteId);
+        if (request.Time is { } t && !TimestampRules.IsValid(t))
+        {
+            violations.Add("time", TimestampRules.InvalidDescription);
+        }
+
         var requestedTime = request.Time is null ? double.NaN : ProtoTime.ToSeconds(request.Time);
         violations.ThrowIfAny();
+        access.Require(context, FleetRole.Read, request.SiteId);
         RequireSite(request.SiteId);
 
         var robots = await grains.GetGrain<ISiteGrain>(request.SiteId).GetAttachedRobots();
@@ -132,10 +147,14 @@ internal sealed class PoseGrpcService(IGrainFactory grains, SiteDirectory sites,
         }
     }
 
-    private static PoseFilter ToFilter(WatchPosesRequest request)
+    private PoseFilter ToFilter(WatchPosesRequest request)
     {
         var violations = new Violations();
         violations.SiteId("site_id", request.SiteId);
+        if (request.RobotIds.Count > limits.MaxWatchedRobots)
+        {
+            violations.Add("robot_ids", $"lists {request.RobotIds.Count} robots; at most {limits.MaxWatchedRobots}");
+        }
         for (var i = 0; i < request.RobotIds.Count; i++)
         {
             violations.Id($"robot_ids[{i}]", request.RobotIds[i]);

@@ -7,9 +7,13 @@ using Fleet.Grains.Health;
 using Fleet.Grains.Models;
 using Fleet.Grains.Registry;
 using Fleet.Grains.Streaming;
+using Fleet.Server.Registry;
+using Fleet.Server.Security;
+using Fleet.Server.Validation;
 using Grpc.Core;
 using Anchor = Fleet.Contracts.V1.Anchor;
 using AnchorMap = Fleet.Contracts.V1.AnchorMap;
+using AuditAction = Fleet.Server.Registry.AuditAction;
 
 namespace Fleet.Server.Grpc;
 
@@ -20,35 +24,64 @@ internal sealed class SiteGrpcService(
     IBiasModelLoader biasModelLoader,
     SiteModelCache models,
     AnchorHealthTracker anchorHealth,
-    PoseHub hub) : SiteService.SiteServiceBase
+    PoseHub hub,
+    FleetAccess access,
+    SqliteAuditLog audit,
+    ActiveAnchorMaps activeMaps,
+    FleetValidationOptions limits) : SiteService.SiteServiceBase
 {
+    public const int MaxDisplayNameLength = 256;
+    public const int MaxDescriptionLength = 1024;
+
     public override Task<CreateSiteResponse> CreateSite(CreateSiteRequest request, ServerCallContext context)
     {
         var violations = new Violations();
         violations.SiteId("site_id", request.SiteId);
-        if (request.DisplayName.Length > 256)
+        if (request.DisplayName.Length > MaxDisplayNameLength || request.DisplayName.Any(char.IsControl))
         {
-            violations.Add("display_name", "must be at most 256 characters");
+            violations.Add("display_name", $"must be at most {MaxDisplayNameLength} characters, none of them control characters");
         }
 
         violations.ThrowIfAny();
+        access.Require(context, FleetRole.Admin, request.SiteId);
         var site = Registry(() => registry.CreateSite(request.SiteId, request.DisplayName));
+        Audit(context, AuditAction.CreateSite, site.SiteId, $"created site '{site.SiteId}' (display name '{site.DisplayName}')");
         return Task.FromResult(new CreateSiteResponse { Site = ToProto(site) });
     }
 
     public override Task<GetSiteResponse> GetSite(GetSiteRequest request, ServerCallContext context) =>
-        Task.FromResult(new GetSiteResponse { Site = ToProto(RequireSite(request.SiteId)) });
+        Task.FromResult(new GetSiteResponse { Site = ToProto(RequireSite(context, FleetRole.Read, request.SiteId)) });
 
     public override Task<ListSitesResponse> ListSites(ListSitesRequest request, ServerCallContext context)
     {
         var after = ReadToken(request.PageToken);
         var size = Paging.Size(request.PageSize);
-        var page = registry.ListSites(after, size + 1);
-        var response = new ListSitesResponse();
-        response.Sites.Add(page.Take(size).Select(ToProto));
-        if (page.Count > size)
+        var visible = new List<SiteEntry>(size + 1);
+        var more = true;
+        while (visible.Count <= size && more)
         {
-            response.NextPageToken = Paging.Token(page[size - 1].SiteId);
+            // Only sites the caller holds a role on; read on until the page is full or the registry has no more.
+            var page = registry.ListSites(after, size + 1);
+            more = page.Count > size;
+            foreach (var site in page)
+            {
+                after = site.SiteId;
+                if (access.CanSee(context, site.SiteId))
+                {
+                    visible.Add(site);
+                    if (visible.Count > size)
+                    {
+                        break;
+                    }
+                }
+            }
+        }
+
+        var response = new ListSitesResponse();
+        response.Sites.Add(visible.Take(size).Select(ToProto));
+        if (visible.Count > size)
+        {
+            response.NextPageToken = Paging.Token(visible[size - 1].SiteId);
         }
 
         return Task.FromResult(response);
@@ -56,11 +89,15 @@ internal sealed class SiteGrpcService(
 
     public override async Task<PutAnchorMapResponse> PutAnchorMap(PutAnchorMapRequest request, ServerCallContext context)
     {
+        Authorize(context, FleetRole.Admin, request.SiteId);
         var violations = new Violations();
-        violations.SiteId("site_id", request.SiteId);
         if (request.Anchors.Count == 0)
         {
             violations.Add("anchors", "must list at least one anchor");
+        }
+        else if (request.Anchors.Count > limits.MaxAnchorsPerMap)
+        {
+            violations.Add("anchors", $"has {request.Anchors.Count} anchors; at most {limits.MaxAnchorsPerMap}");
         }
 
         var anchors = new List<Estimation.Anchors.Anchor>(request.Anchors.Count);
@@ -72,6 +109,21 @@ internal sealed class SiteGrpcService(
             {
                 violations.Add($"anchors[{i}].position", "is required");
             }
+            else
+            {
+                violations.Finite($"anchors[{i}].position.x", a.Position.X);
+                violations.Finite($"anchors[{i}].position.y", a.Position.Y);
+                violations.Finite($"anchors[{i}].position.z", a.Position.Z);
+            }
+
+            if (a.OrientationDeg is { } o)
+            {
+                violations.Finite($"anchors[{i}].orientation_deg.x", o.X);
+                violations.Finite($"anchors[{i}].orientation_deg.y", o.Y);
+                violations.Finite($"anchors[{i}].orientation_deg.z", o.Z);
+            }
+
+            violations.Finite($"anchors[{i}].antenna_delay_m", a.AntennaDelayM);
 
             anchors.Add(new Estimation.Anchors.Anchor(a.AnchorId, ToVector(a.Position), ToVector(a.OrientationDeg), a.AntennaDelayM));
         }
@@ -89,8 +141,10 @@ internal sealed class SiteGrpcService(
         }
 
         violations.ThrowIfAny();
-        RequireSite(request.SiteId);
+        RequireSite(context, FleetRole.Admin, request.SiteId);
         var entry = Registry(() => registry.AddAnchorMap(request.SiteId, anchors));
+        activeMaps.Invalidate(request.SiteId);
+        Audit(context, AuditAction.PutAnchorMap, request.SiteId, $"anchor map v{entry.Version} with {anchors.Count} anchors, now active");
         await grains.GetGrain<ISiteGrain>(request.SiteId).Refresh();
 
         var response = new PutAnchorMapResponse { AnchorMap = ToProto(entry) };
@@ -100,7 +154,7 @@ internal sealed class SiteGrpcService(
 
     public override Task<GetAnchorMapResponse> GetAnchorMap(GetAnchorMapRequest request, ServerCallContext context)
     {
-        RequireSite(request.SiteId);
+        RequireSite(context, FleetRole.Read, request.SiteId);
         var entry = registry.GetAnchorMap(request.SiteId, (int)request.Version);
         if (entry is null)
         {
@@ -114,8 +168,14 @@ internal sealed class SiteGrpcService(
 
     public override async Task<UploadBiasModelResponse> UploadBiasModel(UploadBiasModelRequest request, ServerCallContext context)
     {
+        // Authorised before the model bytes are parsed: strangers' uploads cost no CPU.
+        Authorize(context, FleetRole.Admin, request.SiteId);
         var violations = new Violations();
-        violations.SiteId("site_id", request.SiteId);
+        if (request.Description.Length > MaxDescriptionLength || request.Description.Any(c => char.IsControl(c) && c != '\n'))
+        {
+            violations.Add("description", $"must be at most {MaxDescriptionLength} characters, no control characters but line breaks");
+        }
+
         if (request.Model.IsEmpty)
         {
             violations.Add("model", "is required");
@@ -133,8 +193,10 @@ internal sealed class SiteGrpcService(
         }
 
         violations.ThrowIfAny();
-        RequireSite(request.SiteId);
+        RequireSite(context, FleetRole.Admin, request.SiteId);
         var entry = Registry(() => registry.AddBiasModel(request.SiteId, request.Model.ToByteArray(), request.Description, request.Activate));
+        Audit(context, AuditAction.UploadBiasModel, request.SiteId,
+            $"bias model v{entry.Version} ({entry.SizeBytes} bytes, sha256 {entry.Sha256}){(request.Activate ? ", activated" : string.Empty)}");
         if (request.Activate)
         {
             await grains.GetGrain<ISiteGrain>(request.SiteId).Refresh();
@@ -145,23 +207,29 @@ internal sealed class SiteGrpcService(
 
     public override async Task<ActivateBiasModelResponse> ActivateBiasModel(ActivateBiasModelRequest request, ServerCallContext context)
     {
-        RequireSite(request.SiteId);
+        RequireSite(context, FleetRole.Admin, request.SiteId);
+        var previous = registry.GetSite(request.SiteId)?.BiasModelVersion ?? 0;
         var site = Registry(() => registry.ActivateBiasModel(request.SiteId, (int)request.Version));
+        Audit(context, AuditAction.ActivateBiasModel, request.SiteId, request.Version == 0
+            ? $"bias correction off (was v{previous})"
+            : $"bias model v{request.Version} active (was v{previous})");
         await grains.GetGrain<ISiteGrain>(request.SiteId).Refresh();
         return new ActivateBiasModelResponse { Site = ToProto(site) };
     }
 
     public override async Task<RollBackBiasModelResponse> RollBackBiasModel(RollBackBiasModelRequest request, ServerCallContext context)
     {
-        RequireSite(request.SiteId);
+        RequireSite(context, FleetRole.Admin, request.SiteId);
+        var previous = registry.GetSite(request.SiteId)?.BiasModelVersion ?? 0;
         var site = Registry(() => registry.RollBackBiasModel(request.SiteId));
+        Audit(context, AuditAction.RollBackBiasModel, request.SiteId, $"rolled back from bias model v{previous} to v{site.BiasModelVersion}");
         await grains.GetGrain<ISiteGrain>(request.SiteId).Refresh();
         return new RollBackBiasModelResponse { Site = ToProto(site) };
     }
 
     public override Task<ListBiasModelsResponse> ListBiasModels(ListBiasModelsRequest request, ServerCallContext context)
     {
-        RequireSite(request.SiteId);
+        RequireSite(context, FleetRole.Read, request.SiteId);
         var after = ReadToken(request.PageToken);
         var afterVersion = 0;
         if (after is not null && !int.TryParse(after, out afterVersion))
@@ -191,6 +259,10 @@ internal sealed class SiteGrpcService(
         {
             violations.Add("tag_offset", "must be finite");
         }
+        else if (Math.Max(Math.Abs(offset.X), Math.Max(Math.Abs(offset.Y), Math.Abs(offset.Z))) > limits.MaxTagOffsetMetres)
+        {
+            violations.Add("tag_offset", $"must be within {limits.MaxTagOffsetMetres} m of the reference point on every axis");
+        }
 
         MotionModelKind motion = MotionModelKind.PlanarOdometry;
         switch (request.MotionModel)
@@ -207,8 +279,10 @@ internal sealed class SiteGrpcService(
         }
 
         violations.ThrowIfAny();
-        RequireSite(request.SiteId);
+        RequireSite(context, FleetRole.Admin, request.SiteId);
         var robot = Registry(() => registry.PutRobot(request.SiteId, request.RobotId, offset, motion));
+        Audit(context, AuditAction.PutRobot, request.SiteId, System.FormattableString.Invariant(
+            $"robot '{request.RobotId}': tag offset ({offset.X}, {offset.Y}, {offset.Z}) m, motion {request.MotionModel}"));
         var attached = await grains.GetGrain<ISiteGrain>(request.SiteId).GetAttachedRobots();
         if (Array.BinarySearch(attached, request.RobotId, StringComparer.Ordinal) >= 0)
         {
@@ -220,7 +294,7 @@ internal sealed class SiteGrpcService(
 
     public override Task<ListRobotsResponse> ListRobots(ListRobotsRequest request, ServerCallContext context)
     {
-        RequireSite(request.SiteId);
+        RequireSite(context, FleetRole.Read, request.SiteId);
         var after = ReadToken(request.PageToken);
         var size = Paging.Size(request.PageSize);
         var page = registry.ListRobots(request.SiteId, after, size + 1);
@@ -246,7 +320,7 @@ internal sealed class SiteGrpcService(
 
     public override Task<ListAnchorHealthResponse> ListAnchorHealth(ListAnchorHealthRequest request, ServerCallContext context)
     {
-        var site = RequireSite(request.SiteId);
+        var site = RequireSite(context, FleetRole.Read, request.SiteId);
         var map = models.GetAnchorMap(site.SiteId, site.AnchorMapVersion);
         var response = new ListAnchorHealthResponse();
         if (map is null)
@@ -287,13 +361,21 @@ internal sealed class SiteGrpcService(
         return Task.FromResult(response);
     }
 
-    private SiteEntry RequireSite(string siteId)
+    /// <summary>The id's form (INVALID_ARGUMENT), then the caller's role on the site (PERMISSION_DENIED).</summary>
+    private void Authorize(ServerCallContext context, FleetRole role, string siteId)
     {
         if (!FleetIds.IsValidSiteId(siteId))
         {
             GrpcErrors.ThrowInvalidArgument("site_id", "must be 1–64 characters of a–z, 0–9, '-' or '_', starting with a letter or digit");
         }
 
+        access.Require(context, role, siteId);
+    }
+
+    /// <summary>Checks, in this order: the id's form (INVALID_ARGUMENT), the caller's role (PERMISSION_DENIED, so a stranger cannot probe which sites exist), existence (NOT_FOUND).</summary>
+    private SiteEntry RequireSite(ServerCallContext context, FleetRole role, string siteId)
+    {
+        Authorize(context, role, siteId);
         var site = registry.GetSite(siteId);
         if (site is null)
         {
@@ -302,6 +384,9 @@ internal sealed class SiteGrpcService(
 
         return site;
     }
+
+    private void Audit(ServerCallContext context, AuditAction action, string siteId, string details) =>
+        audit.Append(FleetAccess.Describe(context), action, siteId, details);
 
     private static string? ReadToken(string token)
     {

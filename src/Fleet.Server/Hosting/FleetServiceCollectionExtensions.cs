@@ -1,5 +1,6 @@
 using System.Net;
 using System.Net.Sockets;
+using System.Security.Cryptography.X509Certificates;
 using Fleet.Grains;
 using Fleet.Grains.Health;
 using Fleet.Grains.Models;
@@ -9,6 +10,8 @@ using Fleet.Grains.Telemetry;
 using Fleet.Server.Cluster;
 using Fleet.Server.Grpc;
 using Fleet.Server.Models;
+using Fleet.Server.Registry;
+using Fleet.Server.Security;
 using Fleet.Server.Telemetry;
 using Microsoft.AspNetCore.Server.Kestrel.Core;
 using Microsoft.Extensions.Diagnostics.HealthChecks;
@@ -24,12 +27,18 @@ namespace Fleet.Server.Hosting;
 /// <summary>The server's wiring, one method per concern, called from <see cref="FleetServerHost.BuildApp"/>.</summary>
 public static class FleetServiceCollectionExtensions
 {
-    /// <summary>Kestrel: gRPC on an HTTP/2-only port; /metrics on a separate HTTP/1.1 port.</summary>
+    /// <summary>Kestrel: gRPC on an HTTP/2-only port (TLS when Fleet:Security:Tls is set); /metrics on a separate HTTP/1.1 port.</summary>
     public static WebApplicationBuilder AddFleetKestrel(this WebApplicationBuilder builder, FleetServerOptions options)
     {
+        var tls = builder.Configuration.ReadSecurityOptions().Tls;
+        var certificate = Security.FleetTls.Load(tls);
         builder.WebHost.ConfigureKestrel(kestrel =>
         {
-            Listen(kestrel, options.ListenAddress, options.GrpcPort, HttpProtocols.Http2);
+            Listen(kestrel, options.ListenAddress, options.GrpcPort, HttpProtocols.Http2, certificate);
+            if (certificate is not null && tls.PlaintextHealthPort > 0)
+            {
+                Listen(kestrel, options.ListenAddress, tls.PlaintextHealthPort, HttpProtocols.Http2);
+            }
             if (options.MetricsPort > 0)
             {
                 Listen(kestrel, options.ListenAddress, options.MetricsPort, HttpProtocols.Http1);
@@ -102,7 +111,8 @@ public static class FleetServiceCollectionExtensions
             })
             .WithMetrics(metrics =>
             {
-                metrics.AddMeter(FleetInstrumentNames.MeterName, "Microsoft.AspNetCore.Hosting", "Microsoft.AspNetCore.Server.Kestrel", "Microsoft.Orleans");
+                metrics.AddMeter(FleetInstrumentNames.MeterName, "Microsoft.AspNetCore.Hosting", "Microsoft.AspNetCore.Server.Kestrel", "Microsoft.Orleans",
+                    "Microsoft.AspNetCore.RateLimiting");
                 if (options.MetricsPort > 0)
                 {
                     metrics.AddPrometheusExporter();
@@ -163,19 +173,28 @@ public static class FleetServiceCollectionExtensions
         return ((IPEndPoint)listener.LocalEndpoint).Port;
     }
 
-    internal static void Listen(KestrelServerOptions kestrel, string address, int port, HttpProtocols protocols)
+    internal static void Listen(KestrelServerOptions kestrel, string address, int port, HttpProtocols protocols, X509Certificate2? certificate = null)
     {
+        void Configure(ListenOptions o)
+        {
+            o.Protocols = protocols;
+            if (certificate is not null)
+            {
+                o.UseHttps(certificate);
+            }
+        }
+
         if (string.Equals(address, "localhost", StringComparison.OrdinalIgnoreCase))
         {
-            kestrel.ListenLocalhost(port, o => o.Protocols = protocols);
+            kestrel.ListenLocalhost(port, Configure);
         }
         else if (address is "*" or "0.0.0.0" or "::")
         {
-            kestrel.ListenAnyIP(port, o => o.Protocols = protocols);
+            kestrel.ListenAnyIP(port, Configure);
         }
         else
         {
-            kestrel.Listen(IPAddress.Parse(address), port, o => o.Protocols = protocols);
+            kestrel.Listen(IPAddress.Parse(address), port, Configure);
         }
     }
 
