@@ -33,8 +33,15 @@ public sealed class AnchorHealthServer : IAsyncLifetime
 /// with the right reason within <see cref="AnchorHealthTracker.DetectionBoundSeconds"/> of data, and a healthy
 /// constellation raises nothing.
 /// </summary>
+[Collection(AnchorHealthTests.AloneCollection)]
 public sealed class AnchorHealthTests(AnchorHealthServer fixture, ITestOutputHelper output) : IClassFixture<AnchorHealthServer>
 {
+    /// <summary>
+    /// Runs with no other server alive in the test process: OpenTelemetry listens to meters by name, so another
+    /// in-process server's "Fleet" meter would share the flag gauge's stream (one server per process in production).
+    /// </summary>
+    public const string AloneCollection = "anchor health, no other server alive";
+
     private const string Layout = WarehouseSites.Tall;
     private const int Faulty = 4;
 
@@ -160,3 +167,6 @@ public sealed class AnchorHealthTests(AnchorHealthServer fixture, ITestOutputHel
     private static AxisAlignedBox Shelving(Vector3D anchor) =>
         new(new Vector3D(anchor.X - 2, anchor.Y - 2, 0), new Vector3D(anchor.X + 2, anchor.Y + 2, anchor.Z - 0.3));
 }
+
+[CollectionDefinition(AnchorHealthTests.AloneCollection, DisableParallelization = true)]
+public sealed class AnchorHealthAloneCollection;

@@ -45,6 +45,9 @@ public sealed class KillRestartTests
             await using (var first = ServerProcess.Start(dataDirectory, ports, settings))
             {
                 await first.WaitReadyAsync(address, TimeSpan.FromSeconds(90));
+
+                // The shared channel may have tried (and backed off) before the process listened: connect it now.
+                await channel.ConnectAsync().WaitAsync(TimeSpan.FromSeconds(60));
                 await sites.CreateSiteAsync(new CreateSiteRequest { SiteId = Site, DisplayName = "Harbor Point DC" }, deadline: Deadline());
                 await sites.PutAnchorMapAsync(TestScenario.AnchorMapRequest(Site), deadline: Deadline());
                 await sites.PutAnchorMapAsync(TestScenario.AnchorMapRequest(Site), deadline: Deadline());
