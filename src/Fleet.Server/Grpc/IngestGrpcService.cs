@@ -34,14 +34,22 @@ internal sealed class IngestGrpcService(
         IServerStreamWriter<StreamMeasurementsResponse> responseStream,
         ServerCallContext context)
     {
-        await foreach (var request in requestStream.ReadAllAsync(context.CancellationToken))
+        try
         {
-            // The call-rate limiter counts calls, not messages: each batch of a stream takes its own permit.
-            await rateLimits.AcquireStreamMessageAsync(context);
-            validator.ValidateStructure(request.Batch, "batch");
-            access.Require(context, FleetRole.Ingest, request.Batch.SiteId);
-            var ack = await IngestAsync(request.Batch);
-            await responseStream.WriteAsync(new StreamMeasurementsResponse { Ack = ack });
+            await foreach (var request in requestStream.ReadAllAsync(context.CancellationToken))
+            {
+                // The call-rate limiter counts calls, not messages: each batch of a stream takes its own permit.
+                await rateLimits.AcquireStreamMessageAsync(context);
+                validator.ValidateStructure(request.Batch, "batch");
+                access.Require(context, FleetRole.Ingest, request.Batch.SiteId);
+                var ack = await IngestAsync(request.Batch);
+                await responseStream.WriteAsync(new StreamMeasurementsResponse { Ack = ack });
+            }
+        }
+        catch (Exception e) when (e is IOException or OperationCanceledException or InvalidOperationException && context.CancellationToken.IsCancellationRequested)
+        {
+            // The gateway hung up (reset or cancelled its stream): a normal end, not a server error. Batches it did not
+            // see acknowledged are re-sent by its retry policy.
         }
     }
 

@@ -80,6 +80,10 @@ internal sealed class PoseGrpcService(
         {
             // The client went away.
         }
+        catch (InvalidOperationException) when (ct.IsCancellationRequested)
+        {
+            // The client hung up between the cancellation check and the write ("request is complete"): a normal end.
+        }
     }
 
     public override async Task<GetFleetSnapshotResponse> GetFleetSnapshot(GetFleetSnapshotRequest request, ServerCallContext context)
