@@ -145,7 +145,7 @@ public sealed class FilterOptions
 
     /// <summary>
     /// Slow tags: once the burst spans the whole <see cref="InitBurstWindowSeconds"/>, a fix is attempted with this many
-    /// TDOAs (3 … <see cref="InitBurstCount"/>) even if <see cref="InitBurstCount"/> is not reached. Default 10.
+    /// TDOAs (≥ 3; capped at <see cref="InitBurstCount"/>) even if <see cref="InitBurstCount"/> is not reached. Default 10.
     /// </summary>
     public int InitBurstMinimumCount { get; init; } = 10;
 
@@ -264,7 +264,7 @@ public sealed class FilterOptions
         Positive(YawAlignmentDistanceMetres, nameof(YawAlignmentDistanceMetres));
         Positive(MaxAlignedYawSigma, nameof(MaxAlignedYawSigma));
         Range(InitBurstCount, 3, 1000, nameof(InitBurstCount));
-        Range(InitBurstMinimumCount, 3, InitBurstCount, nameof(InitBurstMinimumCount));
+        Range(InitBurstMinimumCount, 3, 1000, nameof(InitBurstMinimumCount));
         if (InitBurstCapacity < InitBurstCount || InitBurstCapacity > 1000)
         {
             throw new ArgumentOutOfRangeException(nameof(InitBurstCapacity), InitBurstCapacity, $"must be between {nameof(InitBurstCount)} and 1000");

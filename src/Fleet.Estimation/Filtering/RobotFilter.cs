@@ -973,7 +973,7 @@ public sealed class RobotFilter
 
         _burstSinceAttempt++;
         var due = _burstAttempted ? Math.Max(1, _options.InitBurstCount / 2) : 1;
-        if (_burstSinceAttempt >= due && (_burstCount >= _options.InitBurstCount || (_burstCount >= _options.InitBurstMinimumCount && BurstSpansWindow())))
+        if (_burstSinceAttempt >= due && (_burstCount >= _options.InitBurstCount || (_burstCount >= Math.Min(_options.InitBurstMinimumCount, _options.InitBurstCount) && BurstSpansWindow())))
         {
             TryInitialise();
         }
