@@ -149,8 +149,8 @@ public sealed class FilterOptions
     /// </summary>
     public int InitBurstMinimumCount { get; init; } = 10;
 
-    /// <summary>Capacity of the initialisation buffer (≥ <see cref="InitBurstCount"/>). Default 48.</summary>
-    public int InitBurstCapacity { get; init; } = 48;
+    /// <summary>Capacity of the initialisation buffer (≥ <see cref="InitBurstCount"/>; a full buffer drops its oldest). Default 32.</summary>
+    public int InitBurstCapacity { get; init; } = 32;
 
     /// <summary>Only TDOAs within this window (s) of the newest one are used for a fix. Default 0.5.</summary>
     public double InitBurstWindowSeconds { get; init; } = 0.5;
