@@ -24,7 +24,8 @@ import tempfile
 import time
 import urllib.request
 
-from outside_checks import ANCHORS, REPO, TAG, T0, Checks, distance, free_port, generate_stubs, timestamp
+from outside_checks import (ANCHORS, REPO, TAG, T0, Checks, distance, free_port, generate_stubs, print_server_log,
+                            stop_processes, timestamp)
 
 API_KEY = "h2load-gateway-key"
 METHOD = "fleet.v1.IngestService/SubmitMeasurements"
@@ -134,17 +135,9 @@ def main():
                      counts.get("OK", 0) == args.requests and sum(v for k, v in counts.items() if k != "OK") == 0, str(counts))
     except Exception as e:  # noqa: BLE001 - report any failure as a failed check
         checks.check("h2load check ran", False, repr(e))
-        log = os.path.join(work, "server.log")
-        if os.path.exists(log):
-            print(open(log).read()[-4000:])
+        print_server_log(work)
     finally:
-        if server is not None:
-            server.terminate()
-            try:
-                server.wait(timeout=30)
-            except subprocess.TimeoutExpired:
-                server.kill()
-        shutil.rmtree(work, ignore_errors=True)
+        stop_processes([server], work)
 
     print(f"h2load: {checks.passed} passed, {checks.failed} failed")
     return 1 if checks.failed else 0

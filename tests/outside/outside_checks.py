@@ -52,6 +52,28 @@ def free_port():
         return s.getsockname()[1]
 
 
+def print_server_log(work):
+    """After a failure: the tail of the server's log, which usually says why."""
+    log = os.path.join(work, "server.log")
+    if os.path.exists(log):
+        print(open(log).read()[-4000:])
+
+
+def stop_processes(processes, work):
+    """Terminates every process (killing those that do not exit within 30 s) and removes the work directory."""
+    for p in processes:
+        if p is not None:
+            p.terminate()
+    for p in processes:
+        if p is None:
+            continue
+        try:
+            p.wait(timeout=30)
+        except subprocess.TimeoutExpired:
+            p.kill()
+    shutil.rmtree(work, ignore_errors=True)
+
+
 def generate_stubs(out_dir):
     from grpc_tools import protoc
     import grpc_tools
@@ -245,18 +267,9 @@ def main():
             print("SKIP Prometheus (not installed or --skip-prometheus)")
     except Exception as e:  # noqa: BLE001 - report any failure as a failed check
         checks.check("outside checks ran", False, repr(e))
-        log = os.path.join(work, "server.log")
-        if os.path.exists(log):
-            print(open(log).read()[-4000:])
+        print_server_log(work)
     finally:
-        for p in processes:
-            p.terminate()
-        for p in processes:
-            try:
-                p.wait(timeout=30)
-            except subprocess.TimeoutExpired:
-                p.kill()
-        shutil.rmtree(work, ignore_errors=True)
+        stop_processes(processes, work)
 
     print(f"outside: {checks.passed} passed, {checks.failed} failed")
     return 1 if checks.failed else 0

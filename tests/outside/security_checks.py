@@ -14,12 +14,12 @@ Usage: security_checks.py [--server-dll PATH]. Prints "security: N passed, M fai
 import argparse
 import hashlib
 import os
-import shutil
 import subprocess
 import sys
 import tempfile
 
-from outside_checks import ANCHORS, REPO, TAG, T0, Checks, distance, free_port, generate_stubs, timestamp
+from outside_checks import (ANCHORS, REPO, TAG, T0, Checks, distance, free_port, generate_stubs, print_server_log,
+                            stop_processes, timestamp)
 
 KEYS = {"gateway-a": ("py-gateway-a-key", "ingest:py-a"), "admin": ("py-admin-key", "admin:*")}
 
@@ -146,17 +146,9 @@ def main():
         run_client(f"127.0.0.1:{grpc_port}", files, checks)
     except Exception as e:  # noqa: BLE001 - report any failure as a failed check
         checks.check("security checks ran", False, repr(e))
-        log = os.path.join(work, "server.log")
-        if os.path.exists(log):
-            print(open(log).read()[-4000:])
+        print_server_log(work)
     finally:
-        if server is not None:
-            server.terminate()
-            try:
-                server.wait(timeout=30)
-            except subprocess.TimeoutExpired:
-                server.kill()
-        shutil.rmtree(work, ignore_errors=True)
+        stop_processes([server], work)
 
     print(f"security: {checks.passed} passed, {checks.failed} failed")
     return 1 if checks.failed else 0
