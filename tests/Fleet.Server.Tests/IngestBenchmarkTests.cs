@@ -18,6 +18,8 @@ public sealed class IngestBenchmarkTests
             PacedSeconds = 0.3,
             RobotsPerBatch = 3,
             Streams = 2,
+            Rounds = 2,
+            MinRounds = 1,
         }).WaitAsync(TimeSpan.FromMinutes(3));
 
         Assert.Equal(6, result.Robots);

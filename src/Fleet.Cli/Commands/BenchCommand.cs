@@ -21,11 +21,12 @@ internal static class BenchCommand
     {
         var json = new Option<bool>("--json") { Description = "Print one JSON object" };
         var robots = new Option<int>("--robots") { Description = "Simulated robots", DefaultValueFactory = _ => new Fleet.Server.Benchmarking.IngestBenchmarkOptions().Robots };
-        var duration = new Option<double>("--duration") { Description = "Seconds of saturated ingest per server", DefaultValueFactory = _ => new Fleet.Server.Benchmarking.IngestBenchmarkOptions().DurationSeconds };
-        var command = new Command("ingest", "A real server and a real gRPC client on loopback against a no-op ingest endpoint over the same transport, in one run.") { json, robots, duration };
+        var duration = new Option<double>("--duration") { Description = "Simulated seconds of saturated ingest per round and server", DefaultValueFactory = _ => new Fleet.Server.Benchmarking.IngestBenchmarkOptions().DurationSeconds };
+        var rounds = new Option<int>("--rounds") { Description = "Throughput rounds alternating between the two servers (best of each reported)", DefaultValueFactory = _ => new Fleet.Server.Benchmarking.IngestBenchmarkOptions().Rounds };
+        var command = new Command("ingest", "A real server and a real gRPC client on loopback against a no-op ingest endpoint over the same transport, in one run.") { json, robots, duration, rounds };
         command.SetAction(async (parse, cancellationToken) =>
         {
-            var options = new Fleet.Server.Benchmarking.IngestBenchmarkOptions { Robots = parse.GetValue(robots), DurationSeconds = parse.GetValue(duration) };
+            var options = new Fleet.Server.Benchmarking.IngestBenchmarkOptions { Robots = parse.GetValue(robots), DurationSeconds = parse.GetValue(duration), Rounds = parse.GetValue(rounds) };
             var result = await Fleet.Server.Benchmarking.IngestBenchmark.RunAsync(options, line => Console.Error.WriteLine(line), cancellationToken);
             Console.WriteLine(CliJson.Serialize(result));
             return 0;
