@@ -16,7 +16,9 @@ public sealed record SiteConfig(
 /// One robot's samples from one ingest batch, as parallel arrays (cheap to build and to copy).
 /// TDOA: times (s, site clock), anchor ids and ddiff = |p − b| − |p − a| (m). Odometry: times, forward speed (m/s),
 /// yaw rate (rad/s). <see cref="ReceivedTimestamp"/> is the <see cref="System.Diagnostics.Stopwatch"/> timestamp at
-/// which the server received the batch, for the ingest-to-publish latency.
+/// which the server received the batch, for the ingest-to-publish latency. When screening already resolved the anchor
+/// ids, <see cref="AnchorIndexA"/>/<see cref="AnchorIndexB"/> hold their indices in anchor-map version
+/// <see cref="AnchorMapVersion"/>, so a grain running that version skips the lookups (otherwise they are empty and 0).
 /// </summary>
 [GenerateSerializer, Immutable]
 public sealed class RobotBatch
@@ -29,6 +31,9 @@ public sealed class RobotBatch
     [Id(5)] public double[] ForwardSpeeds { get; init; } = [];
     [Id(6)] public double[] YawRates { get; init; } = [];
     [Id(7)] public long ReceivedTimestamp { get; init; }
+    [Id(8)] public int AnchorMapVersion { get; init; }
+    [Id(9)] public int[] AnchorIndexA { get; init; } = [];
+    [Id(10)] public int[] AnchorIndexB { get; init; } = [];
 
     public int Count => TdoaTimes.Length + OdometryTimes.Length;
 }
@@ -74,11 +79,15 @@ public sealed class RobotBatchResult
     /// <summary>At most this many rejections are itemised per robot batch.</summary>
     public const int MaxItemisedRejections = 64;
 
+    /// <summary>All-zero counts, shared by every result without rejections (a copy per batch would be garbage).</summary>
+    public static readonly int[] NoRejections = new int[ReasonCount];
+
     [Id(0)] public int Accepted { get; init; }
     [Id(1)] public int DownWeighted { get; init; }
     [Id(2)] public int Buffered { get; init; }
     [Id(3)] public int Rejected { get; init; }
-    [Id(4)] public int[] RejectedByReason { get; init; } = new int[ReasonCount];
+    /// <summary>Counts by reason; shared (never written) when nothing was rejected.</summary>
+    [Id(4)] public int[] RejectedByReason { get; init; } = NoRejections;
     [Id(5)] public SampleRejectionEntry[] Rejections { get; init; } = [];
     [Id(6)] public bool RejectionsTruncated { get; init; }
 

@@ -39,6 +39,7 @@ public sealed partial class RobotGrain(
     private SiteConfig _config = new(string.Empty, false, 0, 0);
     private RobotEntry? _settings;
     private AnchorMap? _map;
+    private int _mapVersion;
     private string[] _anchorIds = [];
     private RobotFilter? _filter;
     private AnchorTally[] _anchorTallies = [];
@@ -170,7 +171,7 @@ public sealed partial class RobotGrain(
             {
                 // The filter keeps its track across a map change; only the anchor geometry moves.
                 _filter.SetAnchorMap(map);
-                UseMap(map);
+                UseMap(map, config.AnchorMapVersion);
             }
         }
 
@@ -197,9 +198,14 @@ public sealed partial class RobotGrain(
         int accepted = 0, downWeighted = 0, buffered = 0, rejected = 0;
         var truncated = false;
 
+        // Anchor indices resolved by screening are used when they refer to the very map version this filter runs.
+        var tdoaCount = batch.TdoaTimes.Length;
+        var indexed = batch.AnchorMapVersion == _mapVersion && _mapVersion > 0
+            && batch.AnchorIndexA.Length == tdoaCount && batch.AnchorIndexB.Length == tdoaCount
+            && AllBelow(batch.AnchorIndexA, map.Count) && AllBelow(batch.AnchorIndexB, map.Count);
+
         // Merge the two sorted lists by time so odometry and TDOA reach the filter in order.
         int i = 0, j = 0;
-        var tdoaCount = batch.TdoaTimes.Length;
         var odometryCount = batch.OdometryTimes.Length;
         while (i < tdoaCount || j < odometryCount)
         {
@@ -217,7 +223,7 @@ public sealed partial class RobotGrain(
             {
                 kind = SampleKind.Tdoa;
                 index = i;
-                update = SubmitTdoa(filter, map, batch, i);
+                update = SubmitTdoa(filter, map, batch, indexed, i);
                 i++;
             }
 
@@ -267,8 +273,8 @@ public sealed partial class RobotGrain(
             DownWeighted = downWeighted,
             Buffered = buffered,
             Rejected = rejected,
-            RejectedByReason = (int[])_rejectedByReason.Clone(),
-            Rejections = [.. _rejections],
+            RejectedByReason = rejected == 0 ? RobotBatchResult.NoRejections : (int[])_rejectedByReason.Clone(),
+            Rejections = _rejections.Count == 0 ? [] : [.. _rejections],
             RejectionsTruncated = truncated,
         };
     }
@@ -286,9 +292,14 @@ public sealed partial class RobotGrain(
         }
     }
 
-    private UpdateResult SubmitTdoa(RobotFilter filter, AnchorMap map, RobotBatch batch, int i)
+    private UpdateResult SubmitTdoa(RobotFilter filter, AnchorMap map, RobotBatch batch, bool indexed, int i)
     {
-        if (!map.TryGetIndex(batch.AnchorA[i], out var a) || !map.TryGetIndex(batch.AnchorB[i], out var b))
+        int a, b;
+        if (indexed)
+        {
+            (a, b) = (batch.AnchorIndexA[i], batch.AnchorIndexB[i]);
+        }
+        else if (!map.TryGetIndex(batch.AnchorA[i], out a) || !map.TryGetIndex(batch.AnchorB[i], out b))
         {
             return UpdateResult.Reject(RejectionReason.UnknownAnchor);
         }
@@ -328,6 +339,7 @@ public sealed partial class RobotGrain(
         {
             _filter = null;
             _map = null;
+            _mapVersion = 0;
             return;
         }
 
@@ -344,7 +356,7 @@ public sealed partial class RobotGrain(
             HoldTagHeight = o.HoldTagHeight && _settings is not null,
         };
         _filter = new RobotFilter(map, filterOptions, LoadBiasModel(_config.BiasModelVersion));
-        UseMap(map);
+        UseMap(map, _config.AnchorMapVersion);
     }
 
     /// <summary>
@@ -403,7 +415,7 @@ public sealed partial class RobotGrain(
         }
     }
 
-    private void UseMap(AnchorMap map)
+    private void UseMap(AnchorMap map, int version)
     {
         if (_anchorIds.Length > 0 && _filter is not null)
         {
@@ -412,6 +424,7 @@ public sealed partial class RobotGrain(
         }
 
         _map = map;
+        _mapVersion = version;
         var ids = new string[map.Count];
         for (var k = 0; k < ids.Length; k++)
         {
@@ -458,6 +471,19 @@ public sealed partial class RobotGrain(
         },
         RecentRejectionRatio = pose.RecentRejectionRatio,
     };
+
+    private static bool AllBelow(int[] indices, int count)
+    {
+        foreach (var k in indices)
+        {
+            if ((uint)k >= (uint)count)
+            {
+                return false;
+            }
+        }
+
+        return true;
+    }
 
     private static Vec3 ToVec(Vector3D v) => new(v.X, v.Y, v.Z);
 

@@ -16,7 +16,7 @@ namespace Fleet.Server.Grpc;
 /// and acknowledges the batch with counts and reasons.
 /// </summary>
 internal sealed class IngestGrpcService(
-    IGrainFactory grains,
+    RobotGrainReferences robotGrains,
     SiteDirectory sites,
     FleetInstruments instruments,
     IngestRecorder recorder,
@@ -84,7 +84,7 @@ internal sealed class IngestGrpcService(
             recorder.Record(batch);
         }
 
-        var screened = validator.Screen(batch, siteExists ? anchorMaps.Get(batch.SiteId) : null, received);
+        var screened = validator.Screen(batch, siteExists ? anchorMaps.GetActive(batch.SiteId) : default, received);
         var results = new Task<RobotBatchResult>?[screened.Length];
         Span<int> rejectedHere = stackalloc int[RobotBatchResult.ReasonCount];
         for (var k = 0; k < screened.Length; k++)
@@ -97,19 +97,26 @@ internal sealed class IngestGrpcService(
             }
 
             // Rejected before reaching a grain, so counted here.
-            foreach (var item in robot.Rejections)
+            for (var i = 0; i < robot.Rejections.Count; i++)
             {
-                rejectedHere[(int)item.Reason]++;
+                rejectedHere[(int)robot.Rejections[i].Reason]++;
             }
 
             if (!robot.IsEmpty)
             {
-                results[k] = grains.GetGrain<IRobotGrain>(GrainKeys.Robot(batch.SiteId, robot.RobotId)).Ingest(robot.Batch);
+                results[k] = robotGrains.Get(batch.SiteId, robot.RobotId).Ingest(robot.Batch);
             }
         }
 
         instruments.RecordMeasurements(batch.SiteId, null, 0, 0, 0, rejectedHere);
-        await Task.WhenAll(results.OfType<Task<RobotBatchResult>>());
+        foreach (var task in results)
+        {
+            if (task is not null)
+            {
+                await task;
+            }
+        }
+
         var ack = ToAck(batch, screened, results);
         activity?.SetTag("fleet.batch.accepted", ack.Accepted + ack.DownWeighted);
         activity?.SetTag("fleet.batch.rejected", ack.Rejected);
@@ -134,8 +141,9 @@ internal sealed class IngestGrpcService(
         for (var k = 0; k < screened.Length; k++)
         {
             var robot = screened[k];
-            foreach (var item in robot.Rejections)
+            for (var i = 0; i < robot.Rejections.Count; i++)
             {
+                var item = robot.Rejections[i];
                 ack.Rejected++;
                 byReason[(int)item.Reason]++;
                 AddRejection(ack, robot.RobotId, item.Kind, item.Index, item.Reason);

@@ -65,6 +65,7 @@ public static class FleetServiceCollectionExtensions
         services.AddSingleton<PoseHub>();
         services.AddSingleton<AnchorHealthTracker>();
         services.AddSingleton<SiteDirectory>();
+        services.AddSingleton<RobotGrainReferences>();
         services.AddSingleton<Recording.IngestRecorder>();
         return services;
     }
@@ -100,7 +101,7 @@ public static class FleetServiceCollectionExtensions
     /// </summary>
     public static IServiceCollection AddFleetTelemetry(this IServiceCollection services, IConfiguration configuration, FleetServerOptions options)
     {
-        var otlp = !string.IsNullOrWhiteSpace(configuration["OTEL_EXPORTER_OTLP_ENDPOINT"]);
+        var otlp = TracesExported(configuration);
         var otel = services.AddOpenTelemetry()
             .ConfigureResource(resource =>
             {
@@ -151,10 +152,18 @@ public static class FleetServiceCollectionExtensions
                 // Site grains hold the list of loaded robots; robots re-attach on a heartbeat if one is unloaded anyway.
                 collection.ClassSpecificCollectionAge[typeof(SiteGrain).FullName!] = TimeSpan.FromDays(1);
             });
-            silo.AddActivityPropagation();
+            // Trace context through grain calls only when traces are exported: the call filters it adds cost every
+            // grain call (two per robot per batch) even when nothing listens.
+            if (TracesExported(builder.Configuration))
+            {
+                silo.AddActivityPropagation();
+            }
         });
         return builder;
     }
+
+    /// <summary>Traces (and metrics) go to OTLP only when <c>OTEL_EXPORTER_OTLP_ENDPOINT</c> is set.</summary>
+    private static bool TracesExported(IConfiguration configuration) => !string.IsNullOrWhiteSpace(configuration["OTEL_EXPORTER_OTLP_ENDPOINT"]);
 
     /// <summary>Replaces 0 ports with free loopback ports so every listener's port is known before start.</summary>
     public static FleetServerOptions ResolvePorts(this FleetServerOptions options)

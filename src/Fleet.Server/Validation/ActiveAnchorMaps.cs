@@ -17,22 +17,29 @@ public sealed class ActiveAnchorMaps(ISiteRegistry registry, SiteModelCache mode
     private readonly ConcurrentDictionary<string, Entry> _entries = new(StringComparer.Ordinal);
 
     /// <summary>The site's active map, or null when the site has none (or does not exist).</summary>
-    public AnchorMap? Get(string siteId)
+    public AnchorMap? Get(string siteId) => GetActive(siteId).Map;
+
+    /// <summary>The site's active map and its version (null and 0 when the site has none or does not exist).</summary>
+    public ActiveAnchorMap GetActive(string siteId)
     {
         var now = time.GetTimestamp();
         if (_entries.TryGetValue(siteId, out var entry) && time.GetElapsedTime(entry.Fetched, now) < RefreshInterval)
         {
-            return entry.Map;
+            return entry.Active;
         }
 
         var version = registry.GetSite(siteId)?.AnchorMapVersion ?? 0;
         var map = version > 0 ? models.GetAnchorMap(siteId, version) : null;
-        _entries[siteId] = new Entry(map, now);
-        return map;
+        var active = new ActiveAnchorMap(map, map is null ? 0 : version);
+        _entries[siteId] = new Entry(active, now);
+        return active;
     }
 
     /// <summary>Forgets the cached map of a site (called after a new map was stored).</summary>
     public void Invalidate(string siteId) => _entries.TryRemove(siteId, out _);
 
-    private sealed record Entry(AnchorMap? Map, long Fetched);
+    private sealed record Entry(ActiveAnchorMap Active, long Fetched);
 }
+
+/// <summary>An anchor map and the version number it was stored under.</summary>
+public readonly record struct ActiveAnchorMap(AnchorMap? Map, int Version);

@@ -59,81 +59,103 @@ public sealed class IngestBatchValidator(FleetValidationOptions options, double 
     /// Checks every sample of a structurally valid batch. <paramref name="map"/> is the site's active anchor map
     /// (null: no map yet, anchors are not checked here and the robot grains reject the samples NO_ANCHOR_MAP).
     /// </summary>
-    public ScreenedRobot[] Screen(MeasurementBatch batch, AnchorMap? map, long receivedTimestamp)
+    public ScreenedRobot[] Screen(MeasurementBatch batch, AnchorMap? map, long receivedTimestamp) =>
+        Screen(batch, new ActiveAnchorMap(map, 0), receivedTimestamp);
+
+    /// <summary>
+    /// As <see cref="Screen(MeasurementBatch, AnchorMap?, long)"/>; with a map version, the passed samples carry their
+    /// anchor indices in that version so the robot grain does not look the ids up again.
+    /// </summary>
+    public ScreenedRobot[] Screen(MeasurementBatch batch, ActiveAnchorMap active, long receivedTimestamp)
     {
+        var map = active.Map;
         var latestAllowed = (time.GetUtcNow().ToUnixTimeMilliseconds() / 1000.0) + options.MaxFutureSkew.TotalSeconds;
-        var seen = new HashSet<string>(StringComparer.Ordinal);
+        var seen = new HashSet<string>(batch.Robots.Count, StringComparer.Ordinal);
         var result = new ScreenedRobot[batch.Robots.Count];
         for (var k = 0; k < batch.Robots.Count; k++)
         {
             var samples = batch.Robots[k];
             var robotOk = FleetIds.IsValidId(samples.RobotId) && seen.Add(samples.RobotId);
             result[k] = robotOk
-                ? ScreenRobot(samples, map, latestAllowed, receivedTimestamp)
+                ? ScreenRobot(samples, map, active.Version, latestAllowed, receivedTimestamp)
                 : ScreenedRobot.RejectAll(samples, SampleRejectionReason.InvalidRobot, receivedTimestamp);
         }
 
         return result;
     }
 
-    private ScreenedRobot ScreenRobot(RobotSamples samples, AnchorMap? map, double latestAllowed, long receivedTimestamp)
+    private ScreenedRobot ScreenRobot(RobotSamples samples, AnchorMap? map, int mapVersion, double latestAllowed, long receivedTimestamp)
     {
-        var rejections = new List<SampleRejectionEntry>();
-
-        var tdoaKeep = new List<int>(samples.Tdoa.Count);
+        // Built for the common case of a clean batch: the arrays are sized for every sample and trimmed only when
+        // something was set aside, and index lists and the rejection list exist only then.
+        List<SampleRejectionEntry>? rejections = null;
+        var tdoaTotal = samples.Tdoa.Count;
+        var times = new double[tdoaTotal];
+        var a = new string[tdoaTotal];
+        var b = new string[tdoaTotal];
+        var values = new double[tdoaTotal];
+        var withIndices = map is not null && mapVersion > 0;
+        var indexA = withIndices ? new int[tdoaTotal] : [];
+        var indexB = withIndices ? new int[tdoaTotal] : [];
+        int[]? tdoaKeep = null;
+        var n = 0;
         var newest = double.NegativeInfinity;
-        for (var i = 0; i < samples.Tdoa.Count; i++)
+        for (var i = 0; i < tdoaTotal; i++)
         {
-            var reason = CheckTdoa(samples.Tdoa[i], map, latestAllowed, ref newest);
-            if (reason == SampleRejectionReason.None)
+            var s = samples.Tdoa[i];
+            var reason = CheckTdoa(s, map, latestAllowed, ref newest, out var ia, out var ib);
+            if (reason != SampleRejectionReason.None)
             {
-                tdoaKeep.Add(i);
+                (rejections ??= []).Add(new SampleRejectionEntry(SampleKind.Tdoa, i, reason));
+                tdoaKeep ??= Enumerable.Range(0, tdoaTotal).ToArray();
+                continue;
             }
-            else
+
+            if (tdoaKeep is not null)
             {
-                rejections.Add(new SampleRejectionEntry(SampleKind.Tdoa, i, reason));
+                tdoaKeep[n] = i;
             }
+
+            times[n] = ProtoTime.ToSeconds(s.SampleTime);
+            a[n] = s.AnchorA;
+            b[n] = s.AnchorB;
+            values[n] = s.DistanceDifference;
+            if (withIndices)
+            {
+                indexA[n] = ia;
+                indexB[n] = ib;
+            }
+
+            n++;
         }
 
-        var odometryKeep = new List<int>(samples.Odometry.Count);
+        var odometryTotal = samples.Odometry.Count;
+        var odometryTimes = new double[odometryTotal];
+        var speeds = new double[odometryTotal];
+        var yawRates = new double[odometryTotal];
+        int[]? odometryKeep = null;
+        var m = 0;
         newest = double.NegativeInfinity;
-        for (var j = 0; j < samples.Odometry.Count; j++)
+        for (var j = 0; j < odometryTotal; j++)
         {
-            var reason = CheckOdometry(samples.Odometry[j], latestAllowed, ref newest);
-            if (reason == SampleRejectionReason.None)
+            var s = samples.Odometry[j];
+            var reason = CheckOdometry(s, latestAllowed, ref newest);
+            if (reason != SampleRejectionReason.None)
             {
-                odometryKeep.Add(j);
+                (rejections ??= []).Add(new SampleRejectionEntry(SampleKind.Odometry, j, reason));
+                odometryKeep ??= Enumerable.Range(0, odometryTotal).ToArray();
+                continue;
             }
-            else
+
+            if (odometryKeep is not null)
             {
-                rejections.Add(new SampleRejectionEntry(SampleKind.Odometry, j, reason));
+                odometryKeep[m] = j;
             }
-        }
 
-        var n = tdoaKeep.Count;
-        var times = new double[n];
-        var a = new string[n];
-        var b = new string[n];
-        var values = new double[n];
-        for (var i = 0; i < n; i++)
-        {
-            var s = samples.Tdoa[tdoaKeep[i]];
-            times[i] = ProtoTime.ToSeconds(s.SampleTime);
-            a[i] = s.AnchorA;
-            b[i] = s.AnchorB;
-            values[i] = s.DistanceDifference;
-        }
-
-        var m = odometryKeep.Count;
-        var odometryTimes = new double[m];
-        var speeds = new double[m];
-        var yawRates = new double[m];
-        for (var j = 0; j < m; j++)
-        {
-            var s = samples.Odometry[odometryKeep[j]];
-            odometryTimes[j] = ProtoTime.ToSeconds(s.SampleTime);
-            speeds[j] = s.ForwardSpeed;
-            yawRates[j] = s.YawRate;
+            odometryTimes[m] = ProtoTime.ToSeconds(s.SampleTime);
+            speeds[m] = s.ForwardSpeed;
+            yawRates[m] = s.YawRate;
+            m++;
         }
 
         return new ScreenedRobot
@@ -141,23 +163,29 @@ public sealed class IngestBatchValidator(FleetValidationOptions options, double 
             RobotId = samples.RobotId,
             Batch = new RobotBatch
             {
-                TdoaTimes = times,
-                AnchorA = a,
-                AnchorB = b,
-                DistanceDifferences = values,
-                OdometryTimes = odometryTimes,
-                ForwardSpeeds = speeds,
-                YawRates = yawRates,
+                TdoaTimes = Trim(times, n),
+                AnchorA = Trim(a, n),
+                AnchorB = Trim(b, n),
+                DistanceDifferences = Trim(values, n),
+                AnchorMapVersion = withIndices ? mapVersion : 0,
+                AnchorIndexA = withIndices ? Trim(indexA, n) : [],
+                AnchorIndexB = withIndices ? Trim(indexB, n) : [],
+                OdometryTimes = Trim(odometryTimes, m),
+                ForwardSpeeds = Trim(speeds, m),
+                YawRates = Trim(yawRates, m),
                 ReceivedTimestamp = receivedTimestamp,
             },
-            TdoaIndices = n == samples.Tdoa.Count ? null : [.. tdoaKeep],
-            OdometryIndices = m == samples.Odometry.Count ? null : [.. odometryKeep],
-            Rejections = rejections,
+            TdoaIndices = tdoaKeep is null ? null : Trim(tdoaKeep, n),
+            OdometryIndices = odometryKeep is null ? null : Trim(odometryKeep, m),
+            Rejections = rejections is null ? [] : rejections,
         };
     }
 
-    private SampleRejectionReason CheckTdoa(TdoaSample s, AnchorMap? map, double latestAllowed, ref double newest)
+    private static T[] Trim<T>(T[] array, int length) => length == array.Length ? array : array[..length];
+
+    private SampleRejectionReason CheckTdoa(TdoaSample s, AnchorMap? map, double latestAllowed, ref double newest, out int a, out int b)
     {
+        (a, b) = (-1, -1);
         var timeReason = CheckTime(s.SampleTime, latestAllowed, ref newest);
         if (timeReason != SampleRejectionReason.None)
         {
@@ -179,7 +207,7 @@ public sealed class IngestBatchValidator(FleetValidationOptions options, double 
             return SampleRejectionReason.None;
         }
 
-        if (!map.TryGetIndex(s.AnchorA, out var a) || !map.TryGetIndex(s.AnchorB, out var b))
+        if (!map.TryGetIndex(s.AnchorA, out a) || !map.TryGetIndex(s.AnchorB, out b))
         {
             return SampleRejectionReason.UnknownAnchor;
         }
@@ -245,7 +273,7 @@ public sealed class ScreenedRobot
 
     public int[]? OdometryIndices { get; init; }
 
-    public required List<SampleRejectionEntry> Rejections { get; init; }
+    public required IReadOnlyList<SampleRejectionEntry> Rejections { get; init; }
 
     /// <summary>True when no sample is left for the grain.</summary>
     public bool IsEmpty => Batch.Count == 0;

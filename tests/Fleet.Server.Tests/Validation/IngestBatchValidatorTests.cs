@@ -43,6 +43,25 @@ public sealed class IngestBatchValidatorTests
     }
 
     [Fact]
+    public void Screen_WithMapVersion_PassedSamplesCarryTheirAnchorIndicesInThatVersion()
+    {
+        // Index i of sample k must be the map's own index of the id it names (AnchorMap.IndexOf), after a bad sample
+        // in between was set aside.
+        var batch = Batch(Robot("r1", Tdoa(Now - 1, "C", "A", 1.0), Tdoa(Now - 0.9, "A", "Z9", 1.0), Tdoa(Now - 0.8, "B", "C", -2.0)));
+
+        var robot = Assert.Single(Validator().Screen(batch, new ActiveAnchorMap(Map, 7), 0));
+        var unversioned = Assert.Single(Validator().Screen(batch, Map, 0));
+
+        Assert.Equal(7, robot.Batch.AnchorMapVersion);
+        Assert.Equal([Map.IndexOf("C"), Map.IndexOf("B")], robot.Batch.AnchorIndexA);
+        Assert.Equal([Map.IndexOf("A"), Map.IndexOf("C")], robot.Batch.AnchorIndexB);
+        Assert.Equal(["C", "B"], robot.Batch.AnchorA);
+        Assert.Equal(2, robot.OriginalIndex(SampleKind.Tdoa, 1));
+        Assert.Equal(0, unversioned.Batch.AnchorMapVersion);
+        Assert.Empty(unversioned.Batch.AnchorIndexA);
+    }
+
+    [Fact]
     public void Screen_ConfiguredMargin_MovesTheImpossibleBound()
     {
         var batch = Batch(Robot("r1", Tdoa(Now - 1, "A", "B", 11.5)));
