@@ -59,7 +59,8 @@ def reachable(host, port):
         return False
 
 
-def start_server(dll, name, work, postgres, redis=None):
+def start_server(dll, name, work, postgres, redis=None, extra_env=None):
+    """Starts one silo on free loopback ports; extra_env (e.g. another ClusterId) overrides the settings below."""
     ports = {k: free_port() for k in ("grpc", "metrics", "silo", "gateway")}
     env = dict(os.environ)
     env.update({
@@ -79,6 +80,7 @@ def start_server(dll, name, work, postgres, redis=None):
         "Logging__LogLevel__Default": "Warning",
         "Logging__LogLevel__Fleet": "Information",
     })
+    env.update(extra_env or {})
     log = open(os.path.join(work, name + ".log"), "w")
     process = subprocess.Popen(["dotnet", dll], env=env, stdout=log, stderr=subprocess.STDOUT)
     return process, ports, log

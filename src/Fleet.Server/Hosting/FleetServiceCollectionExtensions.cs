@@ -96,8 +96,8 @@ public static class FleetServiceCollectionExtensions
     }
 
     /// <summary>
-    /// OpenTelemetry: Fleet, ASP.NET Core, Kestrel and Orleans meters to the Prometheus endpoint; OTLP for metrics and
-    /// traces only when <c>OTEL_EXPORTER_OTLP_ENDPOINT</c> is set (every other <c>OTEL_*</c> variable applies as usual).
+    /// OpenTelemetry: Fleet, ASP.NET Core, Kestrel, Orleans and .NET runtime meters to the Prometheus endpoint; OTLP for
+    /// metrics and traces only when <c>OTEL_EXPORTER_OTLP_ENDPOINT</c> is set (every other <c>OTEL_*</c> variable applies as usual).
     /// </summary>
     public static IServiceCollection AddFleetTelemetry(this IServiceCollection services, IConfiguration configuration, FleetServerOptions options)
     {
@@ -112,8 +112,10 @@ public static class FleetServiceCollectionExtensions
             })
             .WithMetrics(metrics =>
             {
+                // System.Runtime: the runtime's own GC heap, CPU time and working set, so sizing (`fleet bench cluster`)
+                // and operators read memory and CPU per silo from the same endpoint.
                 metrics.AddMeter(FleetInstrumentNames.MeterName, "Microsoft.AspNetCore.Hosting", "Microsoft.AspNetCore.Server.Kestrel", "Microsoft.Orleans",
-                    "Microsoft.AspNetCore.RateLimiting");
+                    "Microsoft.AspNetCore.RateLimiting", "System.Runtime");
                 if (options.MetricsPort > 0)
                 {
                     metrics.AddPrometheusExporter();
