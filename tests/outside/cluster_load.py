@@ -18,6 +18,8 @@ The defaults keep the run near a minute on 2 cores; `--seconds 15 --saturated-se
 import argparse
 import json
 import os
+import re
+import shutil
 import subprocess
 import sys
 import tempfile
@@ -28,6 +30,20 @@ from cluster_check import parse_connection_string, reachable, start_server, wait
 from outside_checks import REPO, Checks, print_server_log, stop_processes  # noqa: E402
 
 SILOS = ("silo-a", "silo-b")
+
+
+def gcdump_tool():
+    """Microsoft's dotnet-gcdump (a .NET global tool; .ci/run installs it), or None."""
+    return shutil.which("dotnet-gcdump") or next((p for p in [os.path.expanduser("~/.dotnet/tools/dotnet-gcdump")] if os.path.exists(p)), None)
+
+
+def live_heap_bytes(tool, pid):
+    """Live managed heap of a process after the full blocking collection dotnet-gcdump induces (its 'GC Heap bytes')."""
+    report = subprocess.run([tool, "report", "-p", str(pid)], stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True, timeout=120)
+    match = re.search(r"^\s*([\d,]+)\s+GC Heap bytes", report.stdout, re.MULTILINE)
+    if report.returncode != 0 or not match:
+        raise RuntimeError(f"dotnet-gcdump report failed: {report.stdout[-500:]}")
+    return int(match.group(1).replace(",", ""))
 
 # One client sends the whole fleet; the per-client limits would throttle it. The watchdog's CPU-starvation warnings
 # under full load are expected on 2 cores.
@@ -53,6 +69,11 @@ def run(args, checks, work):
         for silo_ports in ports:
             wait_ready(f"127.0.0.1:{silo_ports['grpc']}", 90).close()
 
+        # Memory per robot from outside the process: live heap after a forced full collection, before and after the
+        # fleet is loaded (the in-process gauge without a full collection only gives an upper bound).
+        tool = gcdump_tool()
+        heap_before = [live_heap_bytes(tool, p.pid) for p in processes] if tool else None
+
         command = ["dotnet", args.fleet_dll, "bench", "cluster", "--json", "--robots", str(args.robots),
                    "--seconds", str(args.seconds), "--saturated-seconds", str(args.saturated_seconds)]
         for silo_ports in ports:
@@ -72,6 +93,14 @@ def run(args, checks, work):
         checks.check("both silos host robots", len(hosted) == len(SILOS) and all(h > 0 for h in hosted), str(hosted))
         checks.check(f"together the silos host all {args.robots} robots", sum(hosted) == args.robots, f"{hosted} sum {sum(hosted)}")
         checks.check("fleet bench cluster exited 0", bench.returncode == 0, str(bench.returncode))
+        if heap_before is not None:
+            heap_after = [live_heap_bytes(tool, p.pid) for p in processes]
+            for name, before, after, robots in zip(SILOS, heap_before, heap_after, hosted):
+                per_robot = (after - before) / robots if robots else float("nan")
+                print(f"cluster-load: {name} live heap after full GC {before / 1e6:.1f} -> {after / 1e6:.1f} MB, "
+                      f"{per_robot:.0f} B per hosted robot (dotnet-gcdump)")
+        else:
+            print("cluster-load: dotnet-gcdump not installed; live heap per robot not measured")
 
         print(f"cluster-load: {result['silos']} silos, {result['robots']} robots, {result['streams']} streams; "
               f"sent {result['sent']}, acknowledged {result['acknowledged']}, lost {result['lost']}")
