@@ -54,6 +54,7 @@ public enum SampleRejectionReason : byte
     ZeroWeight = 10,
     NotInitialised = 11,
     InvalidRobot = 12,
+    Duplicate = 13,
 }
 
 /// <summary>Kind of a sample in a <see cref="RobotBatch"/>.</summary>
@@ -74,7 +75,7 @@ public readonly record struct SampleRejectionEntry(
 [GenerateSerializer, Immutable]
 public sealed class RobotBatchResult
 {
-    public const int ReasonCount = 13;
+    public const int ReasonCount = 14;
 
     /// <summary>At most this many rejections are itemised per robot batch.</summary>
     public const int MaxItemisedRejections = 64;

@@ -498,6 +498,7 @@ public sealed partial class RobotGrain(
         RejectionReason.ChiSquareGate => SampleRejectionReason.OutlierGate,
         RejectionReason.ZeroWeight => SampleRejectionReason.ZeroWeight,
         RejectionReason.NotInitialised => SampleRejectionReason.NotInitialised,
+        RejectionReason.Duplicate => SampleRejectionReason.Duplicate,
         _ => SampleRejectionReason.InvalidValue,
     };
 

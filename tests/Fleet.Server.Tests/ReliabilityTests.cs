@@ -148,6 +148,31 @@ public sealed class ReliabilityTests(SharedServer shared) : IClassFixture<Shared
         Assert.True(result.ServerAnsweredAfterwards);
     }
 
+    [Fact]
+    public async Task SubmitMeasurements_BatchSentAgain_EverySampleRejectedDuplicateAndThePoseUnchanged()
+    {
+        // A gateway whose acknowledgement was lost sends the batch again (the retry policy keeps every unacknowledged
+        // batch). The filter already used those samples; using them twice would shrink the covariance as if they were
+        // independent new information (Kalman filter noise independence, textbook).
+        await EnsureSiteAsync();
+        const string robot = "resend-1";
+        MeasurementBatch BatchAt(int start) => new() { SiteId = Site, Robots = { TestScenario.StaticTagSamples(robot, (9.2, 5.5, 0.5), start, 4) } };
+        for (var start = 0; start < 80; start += 4)
+        {
+            await Server.Ingest.SubmitMeasurementsAsync(new SubmitMeasurementsRequest { Batch = BatchAt(start) }, deadline: Deadline());
+        }
+
+        var before = (await Server.Poses.GetPoseAsync(new GetPoseRequest { SiteId = Site, RobotId = robot }, deadline: Deadline())).Pose;
+        var again = (await Server.Ingest.SubmitMeasurementsAsync(new SubmitMeasurementsRequest { Batch = BatchAt(76) }, deadline: Deadline())).Ack;
+        var after = (await Server.Poses.GetPoseAsync(new GetPoseRequest { SiteId = Site, RobotId = robot }, deadline: Deadline())).Pose;
+
+        Assert.Equal(0u, again.Accepted + again.DownWeighted + again.Buffered);
+        Assert.Equal(4u, again.Rejected);
+        Assert.All(again.Rejections, r => Assert.Equal(RejectionReason.Duplicate, r.Reason));
+        Assert.Equal(before.Covariance, after.Covariance);
+        Assert.Equal(before.ValidTime, after.ValidTime);
+    }
+
     private async Task EnsureSiteAsync()
     {
         try

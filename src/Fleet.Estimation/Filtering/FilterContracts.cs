@@ -49,6 +49,9 @@ public enum RejectionReason
     ChiSquareGate,
     ZeroWeight,
     NotInitialised,
+
+    /// <summary>Same kind, time and anchors as a measurement the filter already holds (a re-sent batch): using it twice would double its information.</summary>
+    Duplicate,
 }
 
 /// <summary>

@@ -381,6 +381,11 @@ public sealed class RobotFilter
         }
 
         var ev = new RingEvent(m.Time, m.DistanceDifference, 0, m.AnchorA, m.AnchorB, false);
+        if (HoldsAlready(ev))
+        {
+            return UpdateResult.Reject(RejectionReason.Duplicate);
+        }
+
         UpdateResult result;
         if (m.Time >= _time)
         {
@@ -445,6 +450,11 @@ public sealed class RobotFilter
         }
 
         var ev = new RingEvent(m.Time, m.ForwardSpeed, m.YawRate, 0, 0, true);
+        if (HoldsAlready(ev))
+        {
+            return UpdateResult.Reject(RejectionReason.Duplicate);
+        }
+
         if (m.Time >= _time)
         {
             RecordAt(_ringCount, ev);
@@ -1440,6 +1450,30 @@ public sealed class RobotFilter
     /// apply the late event, replay the later events (their outcomes are not re-counted). False when the history
     /// does not reach back far enough.
     /// </summary>
+    /// <summary>
+    /// True when the replay ring already holds a measurement of the same kind, time and anchor pair. Only events at or
+    /// after <paramref name="ev"/>'s time are looked at, so in-order data costs one comparison. Older duplicates than
+    /// the ring reaches are refused as too late anyway.
+    /// </summary>
+    private bool HoldsAlready(in RingEvent ev)
+    {
+        for (var k = _ringCount - 1; k >= 0; k--)
+        {
+            ref readonly var held = ref _events[Physical(k)];
+            if (held.Time < ev.Time)
+            {
+                return false;
+            }
+
+            if (held.Time == ev.Time && held.IsOdometry == ev.IsOdometry && held.AnchorA == ev.AnchorA && held.AnchorB == ev.AnchorB)
+            {
+                return true;
+            }
+        }
+
+        return false;
+    }
+
     private bool TryApplyLate(in RingEvent late, out UpdateResult result)
     {
         result = default;

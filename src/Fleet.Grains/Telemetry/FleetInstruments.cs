@@ -47,6 +47,7 @@ public sealed class FleetInstruments
     [
         "none", "invalid_value", "unknown_site", "no_anchor_map", "unknown_anchor", "same_anchor", "too_late",
         "too_far_in_future", "impossible_value", "outlier_gate", "zero_weight", "not_initialised", "invalid_robot",
+        "duplicate",
     ];
 
     private readonly Counter<long> _measurements;

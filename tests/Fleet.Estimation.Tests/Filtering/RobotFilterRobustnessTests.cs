@@ -125,6 +125,60 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
         }
     }
 
+    [Theory]
+    [InlineData(MotionModelKind.PlanarOdometry)]
+    [InlineData(MotionModelKind.ConstantVelocity3D)]
+    public void Submit_BatchesDeliveredTwice_GiveTheOnceDeliveredResult(MotionModelKind motion)
+    {
+        // A gateway re-sends every batch of 12 events after it went through (its acknowledgement was lost). A Kalman
+        // update assumes each measurement's noise is independent of every other's; applying one twice counts its
+        // information twice (textbook, from memory: Bar-Shalom et al., Estimation with Applications to Tracking and
+        // Navigation, ch. 5). So the twice-delivered run must end in exactly the once-delivered state and covariance.
+        var map = TestSites.Hall();
+        var run = new SyntheticRun { Map = map, Truth = SyntheticRun.Circle(new Vector3D(15, 10, 0), 6, 1.2), Lever = Lever, Duration = 20, NlosFraction = 0.1, Seed = 6 };
+        var events = run.Generate();
+        var options = new FilterOptions { Motion = motion, TagLeverArm = Lever };
+        var once = new RobotFilter(map, options);
+        var twice = new RobotFilter(map, options);
+        var (r0, y0, _, _) = run.Truth(0);
+        var seedPosition = motion == MotionModelKind.PlanarOdometry ? r0 : run.TagAt(run.StartTime);
+        once.SeedPose(run.StartTime - 0.01, seedPosition, y0, 0.2, 0.1);
+        twice.SeedPose(run.StartTime - 0.01, seedPosition, y0, 0.2, 0.1);
+
+        foreach (var e in events)
+        {
+            SyntheticRun.Submit(once, e);
+        }
+
+        var duplicates = 0;
+        foreach (var batch in events.Chunk(12))
+        {
+            foreach (var e in batch)
+            {
+                SyntheticRun.Submit(twice, e);
+            }
+
+            foreach (var e in batch)
+            {
+                var again = SyntheticRun.Submit(twice, e);
+                Assert.True(again.Reason is RejectionReason.Duplicate or RejectionReason.TooLate || again.Outcome == UpdateOutcome.Ignored, again.ToString());
+                duplicates += again.Reason == RejectionReason.Duplicate ? 1 : 0;
+            }
+        }
+
+        Assert.True(duplicates > events.Count / 4, $"{duplicates} duplicates of {events.Count}");
+        Assert.Equal(once.LastTime, twice.LastTime);
+        for (var i = 0; i < once.StateDimension; i++)
+        {
+            Assert.Equal(once.StateVector[i], twice.StateVector[i], 9);
+        }
+
+        for (var i = 0; i < once.CovarianceMatrix.Length; i++)
+        {
+            Assert.Equal(once.CovarianceMatrix[i], twice.CovarianceMatrix[i], 9);
+        }
+    }
+
     [Fact]
     public void Submit_OlderThanLag_IsRejectedTooLateWithoutChangingState()
     {
