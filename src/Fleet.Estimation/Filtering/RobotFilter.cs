@@ -947,6 +947,15 @@ public sealed class RobotFilter
             }
         }
 
+        // A re-sent sample would count twice in the multilateration fix.
+        for (var i = 0; i < _burstCount; i++)
+        {
+            if (_burst[i].Time == m.Time && _burst[i].AnchorA == m.AnchorA && _burst[i].AnchorB == m.AnchorB)
+            {
+                return UpdateResult.Reject(RejectionReason.Duplicate);
+            }
+        }
+
         if (_burstCount == 0 || m.Time > _time || double.IsNaN(_time))
         {
             _time = m.Time;

@@ -180,6 +180,23 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
     }
 
     [Fact]
+    public void Submit_SampleSentAgainWhileAcquiring_IsRejectedDuplicate()
+    {
+        // Before the first fix the samples wait in the initialisation burst; a repeated one would weigh twice in it.
+        var map = TestSites.Hall();
+        var filter = new RobotFilter(map, new FilterOptions { Motion = MotionModelKind.ConstantVelocity3D });
+        var tag = new Vector3D(10, 5, 0.5);
+        var first = new TdoaMeasurement(1.00, 0, 1, Ddiff(map, tag, 0, 1));
+        var second = new TdoaMeasurement(1.02, 1, 2, Ddiff(map, tag, 1, 2));
+
+        Assert.NotEqual(RejectionReason.Duplicate, filter.Submit(first).Reason);
+        Assert.NotEqual(RejectionReason.Duplicate, filter.Submit(second).Reason);
+        Assert.Equal(RejectionReason.Duplicate, filter.Submit(first).Reason);
+        Assert.Equal(RejectionReason.Duplicate, filter.Submit(second).Reason);
+        Assert.Equal(TrackingState.Acquiring, filter.State);
+    }
+
+    [Fact]
     public void Submit_OlderThanLag_IsRejectedTooLateWithoutChangingState()
     {
         var (filter, events) = TrackedFilter(MotionModelKind.PlanarOdometry, 5);
