@@ -7,6 +7,7 @@ at known spots, streams their TDOAs through silo A, and checks:
   1. robots are spread over both silos (each process's fleet_robots_active gauge, scraped from /metrics);
   2. a WatchPoses stream on silo B receives every robot, GetPose through B answers for every robot, and
      GetFleetSnapshot through B covers all of them; every sample sent is acknowledged (no lost measurements);
+     ListAuditEntries through B lists every admin change made through A (the audit log is on the shared database);
   3. silo B is killed with SIGKILL; ingest through A carries on (batches refused with UNAVAILABLE while membership
      declares B dead are retried), B's robots reactivate on A from their stored last pose, and a WatchPoses stream on A
      opened before the kill keeps receiving every robot. Prints how long that took.
@@ -175,6 +176,7 @@ def run(args, checks, work):
     import grpc
     from fleet.v1 import geometry_pb2, ingest_service_pb2, ingest_service_pb2_grpc, measurements_pb2
     from fleet.v1 import pose_service_pb2, pose_service_pb2_grpc, site_pb2, site_service_pb2, site_service_pb2_grpc
+    from fleet.v1 import audit_service_pb2, audit_service_pb2_grpc
 
     a, a_ports, a_log = start_server(args.server_dll, "silo-a", work, args.postgres, args.redis)
     b, b_ports, b_log = start_server(args.server_dll, "silo-b", work, args.postgres, args.redis)
@@ -228,6 +230,14 @@ def run(args, checks, work):
         checks.check("GetPose through B answers for every robot at its spot (5 cm)", max(errors) < 0.05, f"max error {max(errors):.3f} m")
         snapshot = poses.GetFleetSnapshot(pose_service_pb2.GetFleetSnapshotRequest(site_id=SITE), timeout=30)
         checks.check("GetFleetSnapshot through B covers robots of both silos", len(snapshot.poses) == ROBOTS, str(len(snapshot.poses)))
+
+        # The admin changes were all made through A; in cluster mode the audit log is on the shared PostgreSQL, so B
+        # lists them too (one site, one anchor map, every robot).
+        audit = audit_service_pb2_grpc.AuditServiceStub(channel_b)
+        listed = audit.ListAuditEntries(audit_service_pb2.ListAuditEntriesRequest(site_id=SITE, page_size=100), timeout=30).entries
+        actions = sorted(audit_service_pb2.AuditAction.Name(e.action) for e in listed)
+        expected = sorted(["AUDIT_ACTION_CREATE_SITE", "AUDIT_ACTION_PUT_ANCHOR_MAP"] + ["AUDIT_ACTION_PUT_ROBOT"] * ROBOTS)
+        checks.check("ListAuditEntries through B lists every admin change made through A", actions == expected, str(actions))
 
         # Give the last-pose flush (about once a second) time to run, then kill B without warning.
         time.sleep(2.0)

@@ -8,7 +8,7 @@ using AuditEntry = Fleet.Contracts.V1.AuditEntry;
 namespace Fleet.Server.Grpc;
 
 /// <summary>Reads the audit log. Admins see the entries of the sites they administer.</summary>
-internal sealed class AuditGrpcService(SqliteAuditLog audit, FleetAccess access) : AuditService.AuditServiceBase
+internal sealed class AuditGrpcService(IAuditLog audit, FleetAccess access) : AuditService.AuditServiceBase
 {
     public override Task<ListAuditEntriesResponse> ListAuditEntries(ListAuditEntriesRequest request, ServerCallContext context)
     {

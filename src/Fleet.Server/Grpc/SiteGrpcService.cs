@@ -26,7 +26,7 @@ internal sealed class SiteGrpcService(
     AnchorHealthTracker anchorHealth,
     PoseHub hub,
     FleetAccess access,
-    SqliteAuditLog audit,
+    IAuditLog audit,
     ActiveAnchorMaps activeMaps,
     FleetValidationOptions limits) : SiteService.SiteServiceBase
 {

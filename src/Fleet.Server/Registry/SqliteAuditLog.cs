@@ -17,10 +17,25 @@ public enum AuditAction
 public sealed record AuditEntry(long Sequence, DateTimeOffset Time, string Principal, AuditAction Action, string SiteId, string Details);
 
 /// <summary>
+/// The append-only log of admin changes: on SQLite beside the embedded registry, on PostgreSQL in cluster mode so a
+/// change made through any silo is listed through every silo.
+/// </summary>
+public interface IAuditLog
+{
+    AuditEntry Append(string principal, AuditAction action, string siteId, string details);
+
+    /// <summary>
+    /// Newest first: entries with sequence below <paramref name="beforeSequence"/> (0: from the newest), of
+    /// <paramref name="siteId"/> when given, and only of <paramref name="allowedSites"/> when that is not null.
+    /// </summary>
+    IReadOnlyList<AuditEntry> List(string? siteId, IReadOnlyCollection<string>? allowedSites, long beforeSequence, int limit);
+}
+
+/// <summary>
 /// The audit log of admin changes, in its own table of the registry's SQLite file (<see cref="SqliteSiteRegistry.FileName"/>).
 /// Append-only: the server never updates or deletes a row. A change is logged after the registry committed it.
 /// </summary>
-public sealed class SqliteAuditLog
+public sealed class SqliteAuditLog : IAuditLog
 {
     private readonly string _connectionString;
     private readonly TimeProvider _time;
@@ -57,10 +72,6 @@ public sealed class SqliteAuditLog
         return new AuditEntry(seq, DateTimeOffset.FromUnixTimeMilliseconds(now), principal, action, siteId, details);
     }
 
-    /// <summary>
-    /// Newest first: entries with sequence below <paramref name="beforeSequence"/> (0: from the newest), of
-    /// <paramref name="siteId"/> when given, and only of <paramref name="allowedSites"/> when that is not null.
-    /// </summary>
     public IReadOnlyList<AuditEntry> List(string? siteId, IReadOnlyCollection<string>? allowedSites, long beforeSequence, int limit)
     {
         using var db = Open();

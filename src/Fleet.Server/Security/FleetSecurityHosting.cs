@@ -1,6 +1,7 @@
 using System.Security.Claims;
 using System.Threading.RateLimiting;
 using Fleet.Grains;
+using Fleet.Server.Cluster;
 using Fleet.Server.Grpc;
 using Fleet.Server.Registry;
 using Fleet.Server.Validation;
@@ -56,7 +57,11 @@ public static class FleetSecurityHosting
         services.AddSingleton<ActiveAnchorMaps>();
         services.AddSingleton<FleetAccess>();
         services.AddSingleton<ClientRateLimits>();
-        services.AddSingleton(sp => new SqliteAuditLog(sp.GetRequiredService<Microsoft.Extensions.Options.IOptions<FleetServerOptions>>().Value.DataDirectory, sp.GetRequiredService<TimeProvider>()));
+        // In cluster mode the audit log lives with the shared registry, so every silo lists every change.
+        var cluster = builder.Configuration.GetFleetClusterOptions();
+        services.AddSingleton<IAuditLog>(sp => cluster.IsCluster
+            ? new PostgresAuditLog(cluster.EffectiveRegistryConnectionString!, sp.GetRequiredService<TimeProvider>())
+            : new SqliteAuditLog(sp.GetRequiredService<Microsoft.Extensions.Options.IOptions<FleetServerOptions>>().Value.DataDirectory, sp.GetRequiredService<TimeProvider>()));
         services.AddGrpc().AddServiceOptions<IngestGrpcService>(o => o.MaxReceiveMessageSize = validation.MaxIngestMessageBytes);
 
         var authentication = services.AddAuthentication(SchemeName)
