@@ -5,17 +5,19 @@ using Fleet.Estimation.Filtering;
 using Fleet.Estimation.Geometry;
 using Fleet.Grains;
 using Fleet.Grains.Registry;
+using Fleet.Server.Registry;
 using Npgsql;
 using NpgsqlTypes;
 
 namespace Fleet.Server.Cluster;
 
 /// <summary>
-/// The site registry on PostgreSQL, shared by every silo of a cluster. Same contract and layout as the SQLite registry
+/// The site registry on PostgreSQL, shared by every silo of a cluster, with the audit log beside it (so every silo lists
+/// every silo's admin changes). Same contract and layout as the SQLite registry
 /// (anchor maps as site-file JSON, models as bytes, times as Unix milliseconds). Version numbers are assigned under a
 /// row lock on the site (<c>SELECT … FOR UPDATE</c>), so silos writing at once never hand out one version twice.
 /// </summary>
-public sealed class PostgresSiteRegistry : ISiteRegistry, IRobotPoseStore, IDisposable
+public sealed partial class PostgresSiteRegistry : ISiteRegistry, IRobotPoseStore, IAuditLog, IDisposable
 {
     private const int SchemaVersion = 1;
     private const long MigrationLockKey = 0x466C656574_02;
@@ -311,6 +313,10 @@ public sealed class PostgresSiteRegistry : ISiteRegistry, IRobotPoseStore, IDisp
                 tag_x double precision NOT NULL, tag_y double precision NOT NULL, tag_z double precision NOT NULL,
                 yaw double precision NOT NULL, position_sigma double precision NOT NULL, yaw_sigma double precision NOT NULL,
                 saved_ms bigint NOT NULL, PRIMARY KEY(site_id, robot_id));
+            CREATE TABLE IF NOT EXISTS fleet_audit_log(
+                seq bigserial PRIMARY KEY, time_ms bigint NOT NULL, principal text NOT NULL,
+                action text NOT NULL, site_id text NOT NULL, details text NOT NULL);
+            CREATE INDEX IF NOT EXISTS fleet_audit_log_site ON fleet_audit_log(site_id, seq);
             """);
         using (var cmd = Command(db, tx, "SELECT version FROM fleet_schema_info"))
         {

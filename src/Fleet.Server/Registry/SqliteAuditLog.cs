@@ -14,7 +14,24 @@ public enum AuditAction
 }
 
 /// <summary>One audited change: sequence (increasing), UTC time, who, what, which site, and a human-readable summary.</summary>
-public sealed record AuditEntry(long Sequence, DateTimeOffset Time, string Principal, AuditAction Action, string SiteId, string Details);
+public sealed record AuditEntry(long Sequence, DateTimeOffset Time, string Principal, AuditAction Action, string SiteId, string Details)
+{
+    /// <summary>The SELECT list both audit tables are read with, in the order <see cref="Read"/> expects.</summary>
+    public const string Columns = "seq, time_ms, principal, action, site_id, details";
+
+    /// <summary>Reads every row of a query over <see cref="Columns"/>.</summary>
+    public static List<AuditEntry> Read(System.Data.Common.DbDataReader r)
+    {
+        var list = new List<AuditEntry>();
+        while (r.Read())
+        {
+            list.Add(new AuditEntry(r.GetInt64(0), DateTimeOffset.FromUnixTimeMilliseconds(r.GetInt64(1)), r.GetString(2),
+                Enum.TryParse<AuditAction>(r.GetString(3), out var action) ? action : 0, r.GetString(4), r.GetString(5)));
+        }
+
+        return list;
+    }
+}
 
 /// <summary>
 /// The append-only log of admin changes: on SQLite beside the embedded registry, on PostgreSQL in cluster mode so a
@@ -98,17 +115,10 @@ public sealed class SqliteAuditLog : IAuditLog
             where.Add(names.Count == 0 ? "0" : $"site_id IN ({string.Join(", ", names)})");
         }
 
-        cmd.CommandText = $"SELECT seq, time_ms, principal, action, site_id, details FROM audit_log WHERE {string.Join(" AND ", where)} ORDER BY seq DESC LIMIT $limit";
+        cmd.CommandText = $"SELECT {AuditEntry.Columns} FROM audit_log WHERE {string.Join(" AND ", where)} ORDER BY seq DESC LIMIT $limit";
         cmd.Parameters.AddWithValue("$limit", limit);
         using var r = cmd.ExecuteReader();
-        var list = new List<AuditEntry>();
-        while (r.Read())
-        {
-            list.Add(new AuditEntry(r.GetInt64(0), DateTimeOffset.FromUnixTimeMilliseconds(r.GetInt64(1)), r.GetString(2),
-                Enum.TryParse<AuditAction>(r.GetString(3), out var action) ? action : 0, r.GetString(4), r.GetString(5)));
-        }
-
-        return list;
+        return AuditEntry.Read(r);
     }
 
     private SqliteConnection Open()

@@ -60,7 +60,7 @@ public static class FleetSecurityHosting
         // In cluster mode the audit log lives with the shared registry, so every silo lists every change.
         var cluster = builder.Configuration.GetFleetClusterOptions();
         services.AddSingleton<IAuditLog>(sp => cluster.IsCluster
-            ? new PostgresAuditLog(cluster.EffectiveRegistryConnectionString!, sp.GetRequiredService<TimeProvider>())
+            ? (IAuditLog)sp.GetRequiredService<Fleet.Grains.Registry.ISiteRegistry>()
             : new SqliteAuditLog(sp.GetRequiredService<Microsoft.Extensions.Options.IOptions<FleetServerOptions>>().Value.DataDirectory, sp.GetRequiredService<TimeProvider>()));
         services.AddGrpc().AddServiceOptions<IngestGrpcService>(o => o.MaxReceiveMessageSize = validation.MaxIngestMessageBytes);
 
