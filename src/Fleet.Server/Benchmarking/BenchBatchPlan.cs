@@ -116,6 +116,11 @@ public sealed class BenchBatchPlan
         return streams;
     }
 
+    /// <summary>Samples (TDOA and odometry) in every batch of the streams.</summary>
+    public static long SampleCount(List<TimedBatch>[] streams) => streams.Sum(stream => stream.Sum(b => SampleCount(b.Batch)));
+
+    public static long SampleCount(MeasurementBatch batch) => batch.Robots.Sum(r => (long)r.Tdoa.Count + r.Odometry.Count);
+
     private static RobotSamples Samples(string robotId, List<ObservationRecord> records)
     {
         var samples = new RobotSamples { RobotId = robotId };

@@ -235,7 +235,7 @@ public static class ClusterBenchmark
             var warmup = await SendAsync(connections, plan.Build(0, options.WarmupSeconds), options, paced: false, cancellationToken);
 
             var pacedBatches = plan.Build(options.WarmupSeconds, options.WarmupSeconds + options.PacedSeconds);
-            var pacedSamples = Count(pacedBatches);
+            var pacedSamples = BenchBatchPlan.SampleCount(pacedBatches);
             log($"paced: {options.PacedSeconds:0.#} s in real time, {pacedSamples / options.PacedSeconds:0} samples/s offered");
             var paced = await SendAsync(connections, pacedBatches, options, paced: true, cancellationToken);
 
@@ -304,10 +304,6 @@ public static class ClusterBenchmark
     }
 
     private static double Get(Dictionary<string, double> scrape, string name) => scrape.TryGetValue(name, out var value) ? value : double.NaN;
-
-    private static long Count(List<TimedBatch>[] streams) => streams.Sum(stream => stream.Sum(b => Count(b.Batch)));
-
-    private static long Count(MeasurementBatch batch) => batch.Robots.Sum(r => (long)r.Tdoa.Count + r.Odometry.Count);
 
     /// <summary>Scrapes every silo's endpoint in turn, each scrape at least a second after the previous one.</summary>
     private sealed class SiloScraper(HttpClient http, IReadOnlyList<Uri> endpoints)
@@ -419,7 +415,7 @@ public static class ClusterBenchmark
                         maxLag = Math.Max(maxLag, lag);
                     }
 
-                    Interlocked.Add(ref sent[silo], Count(batch));
+                    Interlocked.Add(ref sent[silo], BenchBatchPlan.SampleCount(batch));
                     await call.RequestStream.WriteAsync(new StreamMeasurementsRequest { Batch = batch }, stop.Token);
                 }
 

@@ -176,7 +176,7 @@ public static class IngestBenchmark
         // twice, so none is refused as too late), then the paced phase. Each is sliced into batches when it is due.
         var warmup = plan.Build(0, options.WarmupSeconds);
         List<TimedBatch>[] Round(int r) => plan.Build(options.WarmupSeconds + (r * options.DurationSeconds), options.WarmupSeconds + ((r + 1) * options.DurationSeconds));
-        log($"{Count(Round(0))} samples per throughput round, {minRounds}–{rounds} rounds, {options.Streams} streams");
+        log($"{minRounds}–{rounds} throughput rounds, {options.Streams} streams");
 
         var filterBytes = MeasureFilterBytes(generator.Layout.Anchors, robots[0]);
 
@@ -209,8 +209,8 @@ public static class IngestBenchmark
                 break;
             }
 
-            log($"throughput round {r + 1}: filtering server, then no-op server");
             var batches = Round(r);
+            log($"throughput round {r + 1} ({BenchBatchPlan.SampleCount(batches)} samples): filtering server, then no-op server");
             latencies.Clear();
             var run = await SendAsync(channel, batches, options, paced: false, cancellationToken);
             var latency = Drain(latencies);
@@ -263,8 +263,6 @@ public static class IngestBenchmark
             NoopCpuMicrosecondsPerMeasurement = bestNoop.CpuMicrosecondsPerSample,
         };
     }
-
-    private static long Count(List<TimedBatch>[] streams) => streams.Sum(stream => stream.Sum(b => b.Batch.Robots.Sum(r => (long)r.Tdoa.Count + r.Odometry.Count)));
 
     private static double[] Drain(ConcurrentQueue<double> seconds)
     {
