@@ -78,17 +78,7 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
     {
         // Every event is delivered up to 0.08 s late (lag 0.1 s): the rollback/replay must reproduce the in-order
         // state and covariance to 1e-9.
-        var map = TestSites.Hall();
-        var run = new SyntheticRun { Map = map, Truth = SyntheticRun.Circle(new Vector3D(15, 10, 0), 6, 1.2), Lever = Lever, Duration = 20, NlosFraction = 0.1, Seed = 4 };
-        var events = run.Generate();
-        var options = new FilterOptions { Motion = motion, TagLeverArm = Lever };
-
-        var inOrder = new RobotFilter(map, options);
-        var shuffled = new RobotFilter(map, options);
-        var (r0, y0, _, _) = run.Truth(0);
-        var seedPosition = motion == MotionModelKind.PlanarOdometry ? r0 : run.TagAt(run.StartTime);
-        inOrder.SeedPose(run.StartTime - 0.01, seedPosition, y0, 0.2, 0.1);
-        shuffled.SeedPose(run.StartTime - 0.01, seedPosition, y0, 0.2, 0.1);
+        var (events, inOrder, shuffled) = CircleRunWithTwinFilters(motion, seed: 4);
 
         foreach (var e in events)
         {
@@ -113,16 +103,7 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
         output.WriteLine($"{motion}: {outOfOrder} of {events.Count} events arrived out of order");
         Assert.True(outOfOrder > events.Count / 10);
         Assert.Equal(outOfOrder, shuffled.Counters.ReorderedApplied);
-        Assert.Equal(inOrder.LastTime, shuffled.LastTime);
-        for (var i = 0; i < inOrder.StateDimension; i++)
-        {
-            Assert.Equal(inOrder.StateVector[i], shuffled.StateVector[i], 9);
-        }
-
-        for (var i = 0; i < inOrder.CovarianceMatrix.Length; i++)
-        {
-            Assert.Equal(inOrder.CovarianceMatrix[i], shuffled.CovarianceMatrix[i], 9);
-        }
+        AssertSameEstimate(inOrder, shuffled);
     }
 
     [Theory]
@@ -134,16 +115,7 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
         // update assumes each measurement's noise is independent of every other's; applying one twice counts its
         // information twice (textbook, from memory: Bar-Shalom et al., Estimation with Applications to Tracking and
         // Navigation, ch. 5). So the twice-delivered run must end in exactly the once-delivered state and covariance.
-        var map = TestSites.Hall();
-        var run = new SyntheticRun { Map = map, Truth = SyntheticRun.Circle(new Vector3D(15, 10, 0), 6, 1.2), Lever = Lever, Duration = 20, NlosFraction = 0.1, Seed = 6 };
-        var events = run.Generate();
-        var options = new FilterOptions { Motion = motion, TagLeverArm = Lever };
-        var once = new RobotFilter(map, options);
-        var twice = new RobotFilter(map, options);
-        var (r0, y0, _, _) = run.Truth(0);
-        var seedPosition = motion == MotionModelKind.PlanarOdometry ? r0 : run.TagAt(run.StartTime);
-        once.SeedPose(run.StartTime - 0.01, seedPosition, y0, 0.2, 0.1);
-        twice.SeedPose(run.StartTime - 0.01, seedPosition, y0, 0.2, 0.1);
+        var (events, once, twice) = CircleRunWithTwinFilters(motion, seed: 6);
 
         foreach (var e in events)
         {
@@ -167,16 +139,7 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
         }
 
         Assert.True(duplicates > events.Count / 4, $"{duplicates} duplicates of {events.Count}");
-        Assert.Equal(once.LastTime, twice.LastTime);
-        for (var i = 0; i < once.StateDimension; i++)
-        {
-            Assert.Equal(once.StateVector[i], twice.StateVector[i], 9);
-        }
-
-        for (var i = 0; i < once.CovarianceMatrix.Length; i++)
-        {
-            Assert.Equal(once.CovarianceMatrix[i], twice.CovarianceMatrix[i], 9);
-        }
+        AssertSameEstimate(once, twice);
     }
 
     [Fact]
@@ -519,6 +482,36 @@ public class RobotFilterRobustnessTests(ITestOutputHelper output)
 
         // Without the model the +0.3 m would be innovations of 3σ: most would be down-weighted or gated, not accepted.
         Assert.True(filter.Counters.Accepted > 0.8 * (run.TdoaCount - filter.Counters.Buffered), $"accepted {filter.Counters.Accepted} of {run.TdoaCount}, buffered {filter.Counters.Buffered}");
+    }
+
+    /// <summary>A 20-s circle in the test hall (10 % NLOS) and two identical filters seeded at its start.</summary>
+    private static (List<SimEvent> Events, RobotFilter First, RobotFilter Second) CircleRunWithTwinFilters(MotionModelKind motion, int seed)
+    {
+        var map = TestSites.Hall();
+        var run = new SyntheticRun { Map = map, Truth = SyntheticRun.Circle(new Vector3D(15, 10, 0), 6, 1.2), Lever = Lever, Duration = 20, NlosFraction = 0.1, Seed = seed };
+        var options = new FilterOptions { Motion = motion, TagLeverArm = Lever };
+        var (r0, y0, _, _) = run.Truth(0);
+        var seedPosition = motion == MotionModelKind.PlanarOdometry ? r0 : run.TagAt(run.StartTime);
+        var first = new RobotFilter(map, options);
+        var second = new RobotFilter(map, options);
+        first.SeedPose(run.StartTime - 0.01, seedPosition, y0, 0.2, 0.1);
+        second.SeedPose(run.StartTime - 0.01, seedPosition, y0, 0.2, 0.1);
+        return (run.Generate(), first, second);
+    }
+
+    /// <summary>Same time, state and covariance to 1e-9.</summary>
+    private static void AssertSameEstimate(RobotFilter expected, RobotFilter actual)
+    {
+        Assert.Equal(expected.LastTime, actual.LastTime);
+        for (var i = 0; i < expected.StateDimension; i++)
+        {
+            Assert.Equal(expected.StateVector[i], actual.StateVector[i], 9);
+        }
+
+        for (var i = 0; i < expected.CovarianceMatrix.Length; i++)
+        {
+            Assert.Equal(expected.CovarianceMatrix[i], actual.CovarianceMatrix[i], 9);
+        }
     }
 
     private static (RobotFilter Filter, List<SimEvent> Events) TrackedFilter(MotionModelKind motion, double duration, ITdoaBiasModel? bias = null, double seedYawSigma = 0.05)
