@@ -52,6 +52,18 @@ def parse_connection_string(text):
     return lower.get("host", "127.0.0.1"), int(lower.get("port", "5432"))
 
 
+def skip_without_postgres(label, connection_string):
+    """Prints SKIP and returns True when no PostgreSQL is given or it does not answer (.ci/run always starts one)."""
+    if not connection_string:
+        print(f"SKIP {label}: no PostgreSQL given (--postgres or FLEET_TEST_POSTGRES; .ci/run starts one)")
+        return True
+    host, port = parse_connection_string(connection_string)
+    if not reachable(host, port):
+        print(f"SKIP {label}: PostgreSQL not reachable at {host}:{port}")
+        return True
+    return False
+
+
 def reachable(host, port):
     try:
         with socket.create_connection((host, port), timeout=2):
@@ -302,12 +314,7 @@ def main():
     parser.add_argument("--redis", default=os.environ.get("FLEET_TEST_REDIS", ""),
                         help="host:port: Redis membership instead of PostgreSQL (the registry stays on PostgreSQL)")
     args = parser.parse_args()
-    if not args.postgres:
-        print("SKIP cluster: no PostgreSQL given (--postgres or FLEET_TEST_POSTGRES; .ci/run starts one)")
-        return 0
-    host, port = parse_connection_string(args.postgres)
-    if not reachable(host, port):
-        print(f"SKIP cluster: PostgreSQL not reachable at {host}:{port}")
+    if skip_without_postgres("cluster", args.postgres):
         return 0
 
     work = tempfile.mkdtemp(prefix="fleet-cluster-")

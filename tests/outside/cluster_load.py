@@ -26,7 +26,7 @@ import tempfile
 import time
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from cluster_check import parse_connection_string, reachable, start_server, wait_ready  # noqa: E402
+from cluster_check import skip_without_postgres, start_server, wait_ready  # noqa: E402
 from outside_checks import REPO, Checks, print_server_log, stop_processes  # noqa: E402
 
 SILOS = ("silo-a", "silo-b")
@@ -134,12 +134,7 @@ def main():
     parser.add_argument("--saturated-seconds", type=float, default=2)
     parser.add_argument("--save-json", help="also write the command's JSON figures to this file")
     args = parser.parse_args()
-    if not args.postgres:
-        print("SKIP cluster-load: no PostgreSQL given (--postgres or FLEET_TEST_POSTGRES; .ci/run starts one)")
-        return 0
-    host, port = parse_connection_string(args.postgres)
-    if not reachable(host, port):
-        print(f"SKIP cluster-load: PostgreSQL not reachable at {host}:{port}")
+    if skip_without_postgres("cluster-load", args.postgres):
         return 0
 
     work = tempfile.mkdtemp(prefix="fleet-cluster-load-")

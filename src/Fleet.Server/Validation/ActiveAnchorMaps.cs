@@ -16,9 +16,6 @@ public sealed class ActiveAnchorMaps(ISiteRegistry registry, SiteModelCache mode
 
     private readonly ConcurrentDictionary<string, Entry> _entries = new(StringComparer.Ordinal);
 
-    /// <summary>The site's active map, or null when the site has none (or does not exist).</summary>
-    public AnchorMap? Get(string siteId) => GetActive(siteId).Map;
-
     /// <summary>The site's active map and its version (null and 0 when the site has none or does not exist).</summary>
     public ActiveAnchorMap GetActive(string siteId)
     {
